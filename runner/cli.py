@@ -1,0 +1,66 @@
+"""The ``castgrid`` command line.
+
+Each subcommand lives in its own module, which offers ``add_arguments(parser)`` and
+``main(args) -> int``; this module only dispatches and turns user-facing errors into one-line
+messages with exit code 2 (a traceback only with ``--debug``).
+"""
+
+from __future__ import annotations
+
+import argparse
+import importlib
+import sys
+from collections.abc import Sequence
+
+from .errors import CastgridError
+
+#: subcommand -> (module, one-line help)
+COMMANDS: dict[str, tuple[str, str]] = {
+    "run": ("runner.commands.run", "run the evaluation and print the leaderboard"),
+    "check": ("runner.commands.check", "validate config and data and print the plan"),
+    "diff": ("runner.diff", "compare two results folders"),
+    "history": ("runner.history", "show how each forecaster's score moved run by run"),
+    "report": ("runner.report", "(re)build report.html and the plots of a results folder"),
+    "schema": ("runner.commands.schema", "print the JSON Schema of the config"),
+    "cache": ("runner.cache", "inspect or prune the forecast cache"),
+}
+
+
+def build_parser() -> argparse.ArgumentParser:
+    """The argument parser with every subcommand."""
+    parser = argparse.ArgumentParser(
+        prog="castgrid",
+        description="Rolling-origin evaluation of forecasters against simple benchmarks.",
+    )
+    parser.add_argument("--debug", action="store_true", help="show tracebacks of errors")
+    sub = parser.add_subparsers(dest="command", metavar="COMMAND", required=True)
+    for name, (module, help_text) in COMMANDS.items():
+        p = sub.add_parser(name, help=help_text, description=help_text)
+        importlib.import_module(module).add_arguments(p)
+        p.set_defaults(_module=module)
+    return parser
+
+
+def main(argv: Sequence[str] | None = None) -> int:
+    """Entry point of the ``castgrid`` console script; returns the exit code."""
+    argv = list(sys.argv[1:] if argv is None else argv)
+    parser = build_parser()
+    args = parser.parse_args(argv)
+    try:
+        return int(importlib.import_module(args._module).main(args))
+    except CastgridError as exc:
+        if args.debug:
+            raise
+        print(f"castgrid: error: {exc}", file=sys.stderr)
+        return 2
+    except KeyboardInterrupt:
+        print("castgrid: interrupted", file=sys.stderr)
+        return 130
+    except Exception as exc:  # an internal error: say so plainly, exit 1
+        if args.debug:
+            raise
+        print(
+            f"castgrid: internal error: {type(exc).__name__}: {exc} (rerun with --debug)",
+            file=sys.stderr,
+        )
+        return 1

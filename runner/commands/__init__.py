@@ -1,0 +1,1 @@
+"""The ``run``, ``check`` and ``schema`` subcommands."""

@@ -1,0 +1,41 @@
+"""Errors castgrid reports to its users.
+
+The tree::
+
+    CastgridError             anything castgrid reports as a user-facing problem (exit code 2)
+    ├── ConfigError           the YAML config is malformed or names something that does not exist
+    ├── DataError             a dataset file is missing, unreadable or does not fit the config
+    └── PluginError           a plugin forecaster cannot be imported or breaks the protocol
+
+Every message is one line that names the file, then the field or column, then what was
+expected and what was found, for example::
+
+    configs/shop.yaml: windows.train: expected a count >= 1 or a share like "50%", got "half"
+"""
+
+from __future__ import annotations
+
+
+class CastgridError(Exception):
+    """Base of every user-facing castgrid error; the command line turns it into exit code 2."""
+
+
+class ConfigError(CastgridError):
+    """The config file is malformed, has unknown keys or values out of range."""
+
+
+class DataError(CastgridError):
+    """A dataset cannot be read or does not match what the config says about it."""
+
+
+class PluginError(CastgridError):
+    """A plugin forecaster cannot be imported, built, or does not honour the protocol."""
+
+
+class TaskError(Exception):
+    """A single forecasting task failed; recorded in failures.csv, never raised to the user."""
+
+    def __init__(self, reason: str, message: str) -> None:
+        super().__init__(f"{reason}: {message}")
+        self.reason = reason
+        self.message = message

@@ -1,0 +1,92 @@
+"""Many training slices of one flat value array at once, as padded matrices.
+
+Series of a dataset are stored end to end in one float64 array; a task's training slice is
+``values[start:end]``. Baselines and scaled metrics need per-slice sums, differences and the
+last few values for hundreds of thousands of slices, so they are computed on padded
+``(tasks, longest slice)`` matrices in chunks small enough to keep memory bounded, instead of
+one Python call per task. Sums are taken per slice, not as differences of a running cumulative
+sum, so long series with large values lose no precision.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Iterator
+from dataclasses import dataclass
+
+import numpy as np
+
+#: Largest padded matrix built at once (elements); 4M float64 = 32 MiB.
+CHUNK_ELEMENTS = 1 << 22
+
+
+def chunks(starts: np.ndarray, ends: np.ndarray) -> Iterator[slice]:
+    """Consecutive task ranges whose padded matrices stay under :data:`CHUNK_ELEMENTS`."""
+    n = len(starts)
+    if n == 0:
+        return
+    width = int(np.max(ends - starts)) if n else 1
+    rows = max(1, CHUNK_ELEMENTS // max(width, 1))
+    for lo in range(0, n, rows):
+        yield slice(lo, min(n, lo + rows))
+
+
+def padded(values: np.ndarray, starts: np.ndarray, ends: np.ndarray) -> np.ndarray:
+    """Training slices right-aligned in a matrix: row i ends with ``values[ends[i]-1]``.
+
+    Right alignment keeps "the last k values" at fixed columns; cells before a slice's start
+    are NaN.
+    """
+    lengths = ends - starts
+    width = int(lengths.max()) if len(lengths) else 0
+    cols = np.arange(-width, 0, dtype=np.int64)
+    idx = ends[:, None] + cols[None, :]
+    valid = idx >= starts[:, None]
+    out = values[np.where(valid, idx, 0)]
+    out[~valid] = np.nan
+    return out
+
+
+@dataclass
+class SliceSummary:
+    """Per-slice statistics shared by the baselines, their intervals and the scaled metrics.
+
+    Sums of squares and absolute values are of the residuals of the corresponding benchmark
+    method over the slice; ``*_count`` are how many residuals there are.
+    """
+
+    length: np.ndarray
+    first: np.ndarray
+    last: np.ndarray
+    mean: np.ndarray
+    mean_sq: np.ndarray  # sum (y_t - mean)^2
+    diff_sq: np.ndarray  # sum (y_t - y_{t-1})^2
+    drift_sq: np.ndarray  # sum (y_t - y_{t-1} - c)^2, c the mean difference
+    seasonal_abs: np.ndarray  # sum |y_t - y_{t-m}|
+    seasonal_sq: np.ndarray  # sum (y_t - y_{t-m})^2
+
+
+def summarise(
+    values: np.ndarray, starts: np.ndarray, ends: np.ndarray, season: int
+) -> SliceSummary:
+    """Compute :class:`SliceSummary` for every slice ``values[starts[i]:ends[i]]``."""
+    n = len(starts)
+    fields = {name: np.full(n, np.nan) for name in SliceSummary.__dataclass_fields__}
+    fields["length"] = (ends - starts).astype(float)
+    m = max(int(season), 1)
+    for part in chunks(starts, ends):
+        mat = padded(values, starts[part], ends[part])
+        length = fields["length"][part]
+        with np.errstate(invalid="ignore", divide="ignore"):
+            mean = np.nansum(mat, axis=1) / length
+            d = np.diff(mat, axis=1)
+            c = np.nansum(d, axis=1) / (length - 1)
+            ds = mat[:, m:] - mat[:, :-m] if mat.shape[1] > m else np.full((len(mat), 0), np.nan)
+            fields["first"][part] = mat[np.arange(len(mat)), mat.shape[1] - length.astype(int)]
+            fields["last"][part] = mat[:, -1]
+            fields["mean"][part] = mean
+            fields["mean_sq"][part] = np.nansum((mat - mean[:, None]) ** 2, axis=1)
+            fields["diff_sq"][part] = np.nansum(d**2, axis=1)
+            fields["drift_sq"][part] = np.nansum((d - c[:, None]) ** 2, axis=1)
+            fields["seasonal_abs"][part] = np.nansum(np.abs(ds), axis=1)
+            fields["seasonal_sq"][part] = np.nansum(ds**2, axis=1)
+    return SliceSummary(**fields)
