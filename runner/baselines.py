@@ -141,7 +141,9 @@ class _Baseline:
             self.y_, np.array([0]), np.array([len(self.y_)]), horizon,
             season=self.season_, levels=tuple(levels),
         )
-        lower = {lv: b.lower[i, 0] for i, lv in enumerate(levels) if np.isfinite(b.lower[i, 0]).all()}
+        lower = {
+            lv: b.lower[i, 0] for i, lv in enumerate(levels) if np.isfinite(b.lower[i, 0]).all()
+        }
         upper = {lv: b.upper[i, 0] for i, lv in enumerate(levels) if lv in lower}
         return Forecast(b.point[0], lower, upper)
 

@@ -11,7 +11,7 @@ import itertools
 import json
 import re
 from pathlib import Path
-from typing import Any, Literal, Union
+from typing import Any, Literal
 
 import yaml
 from pydantic import (
@@ -53,11 +53,11 @@ class DatasetConfig(_Strict):
     name: str
     path: str
     layout: Literal["long", "wide"] = "long"
-    series: Union[str, list[str], None] = None
+    series: str | list[str] | None = None
     time: str
-    target: Union[str, None] = None
-    frequency: Union[str, None] = None
-    season: Union[int, None] = Field(default=None, ge=1)
+    target: str | None = None
+    frequency: str | None = None
+    season: int | None = Field(default=None, ge=1)
     covariates: list[str] = Field(default_factory=list)
     missing: Literal["error", "interpolate", "zero"] = "error"
 
@@ -104,9 +104,9 @@ class WindowsConfig(_Strict):
     """The rolling-origin scheme (see :mod:`runner.windows` for the fold rule)."""
 
     scheme: Literal["expanding", "sliding"] = "expanding"
-    train: Union[int, str]
-    step: Union[int, None] = Field(default=None, ge=1)
-    folds: Union[int, None] = Field(default=None, ge=1)
+    train: int | str
+    step: int | None = Field(default=None, ge=1)
+    folds: int | None = Field(default=None, ge=1)
     gap: int = Field(default=0, ge=0)
     align: Literal["end", "start"] = "end"
 
@@ -135,8 +135,8 @@ class ExecutionConfig(_Strict):
 
     jobs: int = -1
     engine: Literal["local", "dask"] = "local"
-    address: Union[str, None] = None
-    cache: Union[str, Literal[False]] = "results/.cache"
+    address: str | None = None
+    cache: str | Literal[False] = "results/.cache"
     fit_timeout: float = Field(default=120.0, gt=0)
     on_error: Literal["record", "stop"] = "record"
 
@@ -158,7 +158,7 @@ class ExecutionConfig(_Strict):
 class OutputConfig(_Strict):
     """Where results are written."""
 
-    dir: Union[str, None] = None
+    dir: str | None = None
 
 
 class ModelConfig(_Strict):
@@ -168,7 +168,7 @@ class ModelConfig(_Strict):
     kind: Literal["arima", "ets", "theta", "auto_arima", "plugin"]
     params: dict[str, Any] = Field(default_factory=dict)
     grid: dict[str, list[Any]] = Field(default_factory=dict)
-    entry: Union[str, None] = None
+    entry: str | None = None
 
     @field_validator("name")
     @classmethod
@@ -210,17 +210,17 @@ class Config(_Strict):
     """A whole experiment."""
 
     experiment: str
-    description: Union[str, None] = None
+    description: str | None = None
     seed: int = 0
     horizon: int = Field(ge=1)
-    season: Union[int, None] = Field(default=None, ge=1)
+    season: int | None = Field(default=None, ge=1)
     datasets: list[DatasetConfig] = Field(min_length=1)
     windows: WindowsConfig
-    baselines: Union[list[BaselineSpec], None] = None
+    baselines: list[BaselineSpec] | None = None
     models: list[ModelConfig] = Field(default_factory=list)
     metrics: list[str] = Field(default_factory=lambda: list(DEFAULT_METRICS))
     rank_by: str = "mase"
-    reference: Union[str, None] = None
+    reference: str | None = None
     intervals: list[float] = Field(default_factory=list)
     execution: ExecutionConfig = Field(default_factory=ExecutionConfig)
     output: OutputConfig = Field(default_factory=OutputConfig)
@@ -322,7 +322,7 @@ class ForecasterSpec(BaseModel):
     kind: str
     role: Literal["baseline", "candidate"]
     params: dict[str, Any]
-    entry: Union[str, None] = None
+    entry: str | None = None
     #: True when the baseline list was not given and this one was added as a default.
     default: bool = False
 

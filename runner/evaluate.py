@@ -4,12 +4,11 @@ from __future__ import annotations
 
 import sys
 from dataclasses import dataclass, field
+from pathlib import Path
 
 import numpy as np
 
 from . import metrics as M
-from pathlib import Path
-
 from .config import Config, ForecasterSpec
 from .engine import EngineCounts, forecast_models
 from .plan import DatasetPlan, Plan

@@ -33,6 +33,7 @@ inf; :func:`score_tasks` reports which tasks produced them so the caller can war
 
 from __future__ import annotations
 
+import warnings
 from dataclasses import dataclass
 
 import numpy as np
@@ -137,7 +138,9 @@ def _interval_loss(
 
 
 def _reduce(column: str, loss: np.ndarray, axis: int) -> np.ndarray:
-    with np.errstate(invalid="ignore"):
+    # an all-NaN column (a forecaster without intervals) is simply NaN: no warning wanted
+    with np.errstate(invalid="ignore"), warnings.catch_warnings():
+        warnings.simplefilter("ignore", RuntimeWarning)
         # a NaN anywhere in a task's block makes the task's score NaN (undefined, not skipped)
         mean = loss.mean(axis=axis) if axis == 1 else np.nanmean(loss, axis=axis)
     if column in ("rmse", "rmsse"):

@@ -74,7 +74,9 @@ def _reference(cfg: Config, specs: list[ForecasterSpec], season: int, source: st
     return wanted
 
 
-def plan_dataset(cfg: Config, panel: Panel, specs: list[ForecasterSpec], source: str) -> DatasetPlan:
+def plan_dataset(
+    cfg: Config, panel: Panel, specs: list[ForecasterSpec], source: str
+) -> DatasetPlan:
     """The folds of every series of ``panel`` long enough for the window scheme."""
     season = panel.season
     applicable = [

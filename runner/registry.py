@@ -9,7 +9,7 @@ from __future__ import annotations
 
 import importlib
 import json
-from functools import lru_cache
+from functools import cache
 from typing import Any
 
 from .config import ForecasterSpec
@@ -37,7 +37,7 @@ def entry_of(spec: ForecasterSpec) -> str:
     return BUILTIN[spec.kind]
 
 
-@lru_cache(maxsize=None)
+@cache
 def load_entry(entry: str) -> Any:
     """Import ``module:attribute`` and return the attribute (a class or a factory)."""
     module_name, _, attr = entry.partition(":")

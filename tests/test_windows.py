@@ -1,4 +1,4 @@
-"""Rolling-origin folds (runner.windows) against scikit-learn's TimeSeriesSplit and the SPEC rule."""
+"""Rolling-origin folds (runner.windows) against scikit-learn's TimeSeriesSplit and the fold rule."""
 
 from __future__ import annotations
 
@@ -65,7 +65,8 @@ def test_folds_keeps_latest_and_too_short_gives_none():
 def test_no_test_block_overlaps_its_training_slice():
     rng = np.random.default_rng(0)
     for _ in range(200):
-        n, train, h, step, gap = (int(v) for v in rng.integers([5, 1, 1, 1, 0], [200, 60, 20, 15, 4]))
+        draw = rng.integers([5, 1, 1, 1, 0], [200, 60, 20, 15, 4])
+        n, train, h, step, gap = (int(v) for v in draw)
         kind = ["expanding", "sliding"][int(rng.integers(2))]
         for row in fold_bounds(n, Scheme(kind, train, h, step, gap)):
             s, e, ts, te = row
