@@ -26,8 +26,12 @@ COMMANDS: dict[str, tuple[str, str]] = {
 }
 
 
-def build_parser() -> argparse.ArgumentParser:
-    """The argument parser with every subcommand."""
+def build_parser(only: str | None = None) -> argparse.ArgumentParser:
+    """The argument parser; ``only`` limits option set-up to one subcommand.
+
+    Setting up a subcommand imports its module; limiting it to the one being run keeps start-up
+    fast and keeps one command's import problem from breaking the others.
+    """
     parser = argparse.ArgumentParser(
         prog="castgrid",
         description="Rolling-origin evaluation of forecasters against simple benchmarks.",
@@ -36,7 +40,8 @@ def build_parser() -> argparse.ArgumentParser:
     sub = parser.add_subparsers(dest="command", metavar="COMMAND", required=True)
     for name, (module, help_text) in COMMANDS.items():
         p = sub.add_parser(name, help=help_text, description=help_text)
-        importlib.import_module(module).add_arguments(p)
+        if only is None or only == name:
+            importlib.import_module(module).add_arguments(p)
         p.set_defaults(_module=module)
     return parser
 
@@ -44,7 +49,8 @@ def build_parser() -> argparse.ArgumentParser:
 def main(argv: Sequence[str] | None = None) -> int:
     """Entry point of the ``castgrid`` console script; returns the exit code."""
     argv = list(sys.argv[1:] if argv is None else argv)
-    parser = build_parser()
+    chosen = next((a for a in argv if not a.startswith("-")), None)
+    parser = build_parser(chosen if chosen in COMMANDS else None)
     args = parser.parse_args(argv)
     try:
         return int(importlib.import_module(args._module).main(args))

@@ -1,4 +1,4 @@
-"""Rolling-origin folds (runner.windows) against scikit-learn's TimeSeriesSplit and the fold rule."""
+"""Rolling-origin folds (runner.windows) against scikit-learn TimeSeriesSplit and the fold rule."""
 
 from __future__ import annotations
 

@@ -1,0 +1,99 @@
+"""The Python API, the public names, and the byte-identical leaderboard guarantee."""
+
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+
+import runner
+
+CONFIG = """
+experiment: api
+horizon: 4
+season: 4
+datasets:
+  - name: q
+    path: q.csv
+    series: [region, item]
+    time: quarter
+    target: sales
+windows: {scheme: sliding, train: 16, step: 2}
+intervals: [90]
+metrics: [mae, rmse, mase, smape, coverage, winkler]
+execution: {jobs: 1, cache: false}
+"""
+
+
+def _write(tmp):
+    # Open data: statsmodels' US macro dataset (quarterly real GDP, consumption, investment),
+    # arranged as six series keyed by two columns.
+    from statsmodels.datasets import macrodata
+
+    df = macrodata.load_pandas().data
+    quarters = pd.period_range("1959Q1", periods=len(df), freq="Q").to_timestamp()
+    rows = []
+    for region, cols in (("us", ["realgdp", "realcons", "realinv"]),
+                         ("gov", ["realgovt", "realdpi", "m1"])):
+        for col in cols:
+            rows.append(pd.DataFrame({"region": region, "item": col, "quarter": quarters,
+                                      "sales": df[col].to_numpy()}))
+    frame = pd.concat(rows).sample(frac=1.0, random_state=0)  # unsorted on purpose
+    frame.to_csv(tmp / "q.csv", index=False)
+    (tmp / "c.yaml").write_text(CONFIG)
+    return tmp / "c.yaml"
+
+
+def test_public_names_match_all():
+    public = {n for n in dir(runner) if not n.startswith("_") or n == "__version__"}
+    modules = {n for n in public if type(getattr(runner, n)).__name__ == "module"}
+    assert set(runner.__all__) == public - modules
+
+
+def test_run_returns_dataframes_and_reruns_byte_identical(tmp_path):
+    cfg = _write(tmp_path)
+    a = runner.run(cfg, out_dir=tmp_path / "a", report=False)
+    b = runner.run(cfg, out_dir=tmp_path / "b", report=False)
+    assert isinstance(a.leaderboard, pd.DataFrame) and isinstance(a.scores, pd.DataFrame)
+    assert (tmp_path / "a" / "leaderboard.csv").read_bytes() == (
+        tmp_path / "b" / "leaderboard.csv").read_bytes()
+    board = a.leaderboard
+    assert set(board["forecaster"]) == {"naive", "window_average", "seasonal_naive",
+                                        "season_average", "drift", "mean"}
+    assert list(board["rank"]) == list(range(1, 7))
+    assert board.loc[board.forecaster == "seasonal_naive", "mase_rel"].item() == 1.0
+    # six series keyed by two columns; 203 quarters, sliding 16, horizon 4, step 2
+    assert (board["series"] == 6).all()
+    assert set(a.scores["series"]) == {f"us/{c}" for c in ("realgdp", "realcons", "realinv")} | {
+        f"gov/{c}" for c in ("realgovt", "realdpi", "m1")}
+    n_folds = (203 - 16 - 4) // 2 + 1
+    assert (board["folds"] == n_folds).all()
+    # the scores' mean over tasks of one fold equals what the fold mean is built from
+    s = a.scores[a.scores.forecaster == "naive"]
+    fold_means = s.groupby("fold")["mae"].mean()
+    naive_mae = board.loc[board.forecaster == "naive", "mae_mean"].item()
+    assert np.isclose(naive_mae, fold_means.mean(), rtol=1e-12)
+
+
+def test_results_folder_files(tmp_path):
+    import json
+
+    import pyarrow.parquet as pq
+
+    cfg = _write(tmp_path)
+    out = tmp_path / "out"
+    runner.run(cfg, out_dir=out, report=False)
+    for name in ("leaderboard.csv", "leaderboard.md", "scores.parquet", "horizon.csv",
+                 "forecasts.parquet", "failures.csv", "manifest.json"):
+        assert (out / name).exists(), name
+    fc = pq.read_table(out / "forecasts.parquet").to_pandas()
+    assert {"lower_90", "upper_90", "actual", "forecast", "time", "step"} <= set(fc.columns)
+    # the actual at each forecast row is the observed value at that time (the data file)
+    src = pd.read_csv(tmp_path / "q.csv")
+    src["series"] = src["region"] + "/" + src["item"]
+    src["time"] = pd.to_datetime(src["quarter"]).dt.strftime("%Y-%m-%d")
+    merged = fc.astype({"series": str, "time": str}).merge(src, on=["series", "time"])
+    assert len(merged) == len(fc)
+    np.testing.assert_allclose(merged["actual"], merged["sales"])
+    man = json.loads((out / "manifest.json").read_text())
+    assert man["tasks"]["total"] == 6 * 6 * ((203 - 16 - 4) // 2 + 1)
+    assert man["reference"] == {"q": "seasonal_naive"}
