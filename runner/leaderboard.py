@@ -48,7 +48,8 @@ def _rank_order(values: np.ndarray, names: list[str], column: str) -> np.ndarray
 
 
 def _versus_reference(
-    r: ForecasterResult, ref: ForecasterResult, dr: DatasetResult, rank_by: str, horizon: int
+    r: ForecasterResult, ref: ForecasterResult, dr: DatasetResult, rank_by: str, horizon: int,
+    step: int,
 ) -> dict[str, object]:
     from .significance import compare_with_reference
 
@@ -61,7 +62,7 @@ def _versus_reference(
                 "wilcoxon_p": np.nan, "significant": False}
     c = compare_with_reference(
         score[both], ref_score[both], r.loss[both], ref.loss[both],
-        dr.plan.series[both], dr.plan.fold[both], horizon,
+        dr.plan.series[both], dr.plan.fold[both], horizon, step=step,
     )
     return {"win_share": c.win_share, "dm_better": c.dm_better, "dm_worse": c.dm_worse,
             "wilcoxon_p": c.wilcoxon_p, "significant": bool(c.significant)}
@@ -106,7 +107,9 @@ def build_leaderboard(ev: Evaluation) -> pd.DataFrame:
                            wilcoxon_p=np.nan)
                 row["beats_reference"] = False
                 continue
-            vs = _versus_reference(r, ref, dr, rank_by, cfg.horizon)
+            vs = _versus_reference(
+                r, ref, dr, rank_by, cfg.horizon, cfg.windows.step or cfg.horizon
+            )
             significant = vs.pop("significant")
             row.update(vs)
             row["beats_reference"] = bool(

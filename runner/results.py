@@ -221,6 +221,7 @@ def write_results(
     out_dir = Path(out_dir)
     out_dir.parent.mkdir(parents=True, exist_ok=True)
     tmp = Path(tempfile.mkdtemp(prefix=f".{out_dir.name}.", dir=out_dir.parent))
+    os.chmod(tmp, 0o755)  # mkdtemp makes it private; a results folder is for everyone to read
     try:
         man = manifest(ev)
         (tmp / "leaderboard.csv").write_text(to_csv_text(board), encoding="utf-8")
