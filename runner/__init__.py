@@ -6,24 +6,40 @@ The public API::
     runner.load_config(path)         -> Config
     runner.Forecast                  what a forecaster's predict may return
     runner.ConfigError, DataError, PluginError
+
+Names are imported on first use (PEP 562), so that worker processes and the command line do
+not pay for pandas and the pipeline unless they need them.
 """
+
+from __future__ import annotations
+
+import importlib
+from typing import Any
 
 __version__ = "0.1.0"
 
-from .config import Config, load_config  # noqa: E402
-from .errors import CastgridError, ConfigError, DataError, PluginError  # noqa: E402
-from .forecast import Forecast  # noqa: E402
-from .pipeline import RunResult, run  # noqa: E402
+_EXPORTS = {
+    "CastgridError": "runner.errors",
+    "Config": "runner.config",
+    "ConfigError": "runner.errors",
+    "DataError": "runner.errors",
+    "Forecast": "runner.forecast",
+    "PluginError": "runner.errors",
+    "RunResult": "runner.pipeline",
+    "load_config": "runner.config",
+    "run": "runner.pipeline",
+}
 
-__all__ = [
-    "CastgridError",
-    "Config",
-    "ConfigError",
-    "DataError",
-    "Forecast",
-    "PluginError",
-    "RunResult",
-    "__version__",
-    "load_config",
-    "run",
-]
+__all__ = sorted([*_EXPORTS, "__version__"])
+
+
+def __getattr__(name: str) -> Any:
+    if name in _EXPORTS:
+        value = getattr(importlib.import_module(_EXPORTS[name]), name)
+        globals()[name] = value
+        return value
+    raise AttributeError(f"module 'runner' has no attribute {name!r}")
+
+
+def __dir__() -> list[str]:
+    return sorted(set(globals()) | set(_EXPORTS))

@@ -14,8 +14,11 @@ runs may share a cache (SQLite's locking, with a generous busy timeout). A file 
 readable cache is moved aside as ``forecasts.sqlite.damaged-<n>`` and a new one is started, with
 a warning on stderr. Forecasts are stored as raw float64 bytes, so a hit is bit-identical.
 
-Only successful forecasts are stored: a failure may come from the machine (a timeout under
-load, a killed worker) rather than from the data, so it is tried again next run.
+Failures that follow from the data and the forecaster (reasons ``error`` and
+``invalid-output``) are stored too, so a warm rerun does not refit a model that fails on a
+series every time. Failures that may come from the machine are never stored and are tried
+again next run: ``timeout`` and ``crash``, and errors of the kinds listed in
+:data:`TRANSIENT_ERRORS` (memory, files, imports).
 
 ``castgrid cache info`` and ``castgrid cache prune CONFIG...`` are :func:`main`.
 """
@@ -41,12 +44,19 @@ if TYPE_CHECKING:  # the command line imports this module at start: keep it ligh
 
 CACHE_FILE = "forecasts.sqlite"
 #: Bump when the key or the row layout changes; an older file is then set aside and rebuilt.
-SCHEMA_VERSION = "1"
+SCHEMA_VERSION = "2"
 #: How long a writer waits for another run holding the write lock (milliseconds).
 BUSY_TIMEOUT_MS = 60_000
 _SQLITE_HEADER = b"SQLite format 3\x00"
 _KEY_PREFIX = b"castgrid-forecast-key\x00v1\x00"
 _LOOKUP_CHUNK = 500
+#: Failure reasons worth storing: the same forecaster on the same data fails the same way.
+STORED_FAILURES = ("error", "invalid-output")
+#: Exceptions (the start of an ``error`` message) that may pass on their own: never stored.
+TRANSIENT_ERRORS = (
+    "MemoryError", "OSError", "PermissionError", "FileNotFoundError", "TimeoutError",
+    "ImportError", "ModuleNotFoundError", "PluginError", "BrokenPipeError", "KeyboardInterrupt",
+)
 
 _SCHEMA = """
 CREATE TABLE IF NOT EXISTS meta (name TEXT PRIMARY KEY, value TEXT NOT NULL);
@@ -56,6 +66,8 @@ CREATE TABLE IF NOT EXISTS forecasts (
     identity TEXT NOT NULL,
     horizon INTEGER NOT NULL,
     levels INTEGER NOT NULL,
+    reason TEXT,
+    message TEXT NOT NULL,
     point BLOB NOT NULL,
     lower BLOB NOT NULL,
     upper BLOB NOT NULL,
@@ -132,7 +144,7 @@ def task_keys(tasks: Sequence[ModelTask], shared: SharedData) -> list[bytes]:
             if ck not in cov_digests:
                 cov_digests[ck] = _digest(
                     _array_bytes(cov[task.start : task.end]),
-                    _array_bytes(cov[task.test_start : task.test_start + h]),
+                    _array_bytes(cov[task.end : task.test_start + h]),
                 )
             cov_digest = cov_digests[ck]
         numbers = struct.pack("<qqq", h, task.season, task.test_start - task.end)
@@ -224,6 +236,8 @@ class ForecastCache:
                 conn = _connect(path, readonly=False)
                 conn.execute("PRAGMA journal_mode = WAL")
                 conn.execute("PRAGMA synchronous = NORMAL")
+                # Random 32-byte keys touch pages all over the table: keep more of it in memory.
+                conn.execute("PRAGMA cache_size = -65536")
                 conn.execute("BEGIN IMMEDIATE")
                 for statement in _SCHEMA.strip().split(";"):
                     if statement.strip():
@@ -274,36 +288,49 @@ class ForecastCache:
             self.conn.close()
 
     def lookup(self, keys: Iterable[bytes]) -> dict[bytes, tuple[Any, ...]]:
-        """Rows found for ``keys``: key -> (horizon, levels, point, lower, upper, info, seconds)."""
+        """Rows found for ``keys``: key -> (horizon, levels, reason, message, point, lower,
+        upper, info, seconds)."""
         wanted = list(dict.fromkeys(keys))
         found: dict[bytes, tuple[Any, ...]] = {}
         for lo in range(0, len(wanted), _LOOKUP_CHUNK):
             chunk = wanted[lo : lo + _LOOKUP_CHUNK]
             marks = ",".join("?" * len(chunk))
             for row in self.conn.execute(
-                "SELECT key, horizon, levels, point, lower, upper, info, seconds "
+                "SELECT key, horizon, levels, reason, message, point, lower, upper, info, seconds "
                 f"FROM forecasts WHERE key IN ({marks})",
                 chunk,
             ):
                 found[row[0]] = row[1:]
         return found
 
-    def add(self, key: bytes, kind: str, ident: str, outcome: TaskOutcome) -> None:
-        """Queue a successful outcome; committed in small transactions (see :meth:`flush`)."""
+    def add(self, key: bytes, kind: str, ident: str, outcome: TaskOutcome, horizon: int,
+            n_levels: int) -> bool:
+        """Queue an outcome if it is worth keeping (see :func:`storable`); True if queued.
+
+        Queued outcomes are committed in small transactions (see :meth:`flush`).
+        """
         import numpy as np
 
-        assert outcome.point is not None and outcome.lower is not None
+        if not storable(outcome):
+            return False
+        if outcome.ok:
+            assert outcome.point is not None and outcome.lower is not None
+            arrays = [
+                np.ascontiguousarray(a, dtype=np.float64).tobytes()
+                for a in (outcome.point, outcome.lower, outcome.upper)
+            ]
+        else:
+            arrays = [b"", b"", b""]
         self._pending.append((
-            key, kind, ident, int(outcome.point.shape[0]), int(outcome.lower.shape[0]),
-            np.ascontiguousarray(outcome.point, dtype=np.float64).tobytes(),
-            np.ascontiguousarray(outcome.lower, dtype=np.float64).tobytes(),
-            np.ascontiguousarray(outcome.upper, dtype=np.float64).tobytes(),
+            key, kind, ident, horizon, n_levels, outcome.reason, outcome.message, *arrays,
             info_json(outcome.info), float(outcome.seconds), time.time(),
         ))
-        # Commit at least every 0.2 s: a killed run then loses little, and a writer holds the
-        # lock only briefly when two runs share the cache.
-        if len(self._pending) >= 256 or time.monotonic() - self._last_commit > 0.2:
+        # Commit every half second: a killed run then loses little, and a writer holds the lock
+        # only briefly when two runs share the cache. Not more often: with random keys every
+        # row lands on its own page, so each commit rewrites about one page per row.
+        if len(self._pending) >= 1000 or time.monotonic() - self._last_commit > 0.5:
             self.flush()
+        return True
 
     def flush(self) -> None:
         """Write every queued outcome in one transaction."""
@@ -313,8 +340,9 @@ class ForecastCache:
         self.conn.execute("BEGIN IMMEDIATE")
         try:
             self.conn.executemany(
-                "INSERT OR REPLACE INTO forecasts (key, kind, identity, horizon, levels, point, "
-                "lower, upper, info, seconds, created) VALUES (?,?,?,?,?,?,?,?,?,?,?)",
+                "INSERT OR REPLACE INTO forecasts (key, kind, identity, horizon, levels, reason, "
+                "message, point, lower, upper, info, seconds, created) "
+                "VALUES (?,?,?,?,?,?,?,?,?,?,?,?,?)",
                 rows,
             )
             self.conn.execute("COMMIT")
@@ -371,6 +399,15 @@ class ForecastCache:
         return deleted
 
 
+def storable(outcome: TaskOutcome) -> bool:
+    """True for outcomes the cache keeps: successes and failures that follow from the data."""
+    if outcome.ok:
+        return True
+    if outcome.reason not in STORED_FAILURES:
+        return False
+    return not outcome.message.startswith(TRANSIENT_ERRORS)
+
+
 def info_json(info: dict[str, Any]) -> str:
     """``info`` as canonical JSON (numpy scalars and arrays become numbers and lists)."""
 
@@ -388,8 +425,13 @@ def outcome_from_row(index: int, row: tuple[Any, ...], horizon: int, n_levels: i
 
     from .tasks import TaskOutcome
 
-    h, levels, point, lower, upper, info, seconds = row
-    if h != horizon or levels != n_levels or len(point) != 8 * horizon:
+    h, levels, reason, message, point, lower, upper, info, seconds = row
+    if h != horizon or levels != n_levels:
+        return None
+    if reason is not None:
+        return TaskOutcome(index, None, None, None, reason=reason, message=message,
+                           info=json.loads(info), seconds=float(seconds), cached=True)
+    if len(point) != 8 * horizon:
         return None
     if len(lower) != 8 * horizon * n_levels or len(upper) != len(lower):
         return None

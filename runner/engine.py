@@ -25,9 +25,10 @@ from .tasks import ModelTask, SharedData, TaskOutcome
 class EngineCounts:
     """How the model tasks of a run were served; the four counts add up to the task count.
 
-    ``computed``: forecast in this run; ``cached``: served from the cache (or from an identical
-    task of this run); ``failed``: any failure reason but ``not-run``; ``not_run``: skipped
-    after an earlier failure with ``on_error: stop``.
+    ``computed``: forecast in this run; ``cached``: forecasts served from the cache (or from an
+    identical task of this run); ``failed``: any failure reason but ``not-run``, including
+    failures the cache remembered (``error``, ``invalid-output``: see :mod:`runner.cache`);
+    ``not_run``: skipped after an earlier failure with ``on_error: stop``.
     """
 
     computed: int = 0
@@ -81,6 +82,7 @@ def forecast_models(
     keys: list[bytes] = []
     todo: list[int] = list(range(n))
     twins: dict[int, list[int]] = {}  # position run -> later positions with the same key
+    cached_failures = 0
     if use_cache and cache_path is not None and n:
         from .cache import ForecastCache, outcome_from_row, task_keys
 
@@ -96,6 +98,7 @@ def forecast_models(
                                            len(shared.levels))
                 if outcome is not None:
                     outcomes[pos] = outcome
+                    cached_failures += not outcome.ok
                     continue
             if key in first:
                 twins.setdefault(first[key], []).append(pos)
@@ -104,19 +107,21 @@ def forecast_models(
                 todo.append(pos)
     position = {tasks[p].index: p for p in todo}
     progress = Progress(n, cached=n - len(todo) - sum(map(len, twins.values())), quiet=quiet)
+    progress.failed = cached_failures
     kinds: dict[int, tuple[str, str]] = {}
 
     def done(outcome: TaskOutcome) -> None:
         pos = position[outcome.index]
         _normalise_info(outcome)
-        if cache is not None and outcome.ok:
+        if cache is not None:
             f = tasks[pos].forecaster
             if f not in kinds:
                 from .registry import identity
 
                 spec = shared.forecasters[f]
                 kinds[f] = (spec.kind, identity(spec))
-            cache.add(keys[pos], kinds[f][0], kinds[f][1], outcome)
+            cache.add(keys[pos], kinds[f][0], kinds[f][1], outcome, shared.horizon,
+                      len(shared.levels))
         progress.task_done(outcome.ok)
         for _ in twins.get(pos, ()):
             progress.task_done(outcome.ok)

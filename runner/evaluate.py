@@ -63,10 +63,13 @@ def _baseline_result(
     levels: tuple[float, ...],
 ) -> ForecasterResult:
     model = build(spec)
+    # Forecast through the gap (if any) and keep the last ``horizon`` steps: the scored block.
+    gap = int(dp.test_starts[0] - dp.ends[0]) if dp.n_tasks else 0
     b = model.forecast_many(
-        dp.panel.values, dp.starts, dp.ends, horizon,
+        dp.panel.values, dp.starts, dp.ends, horizon + gap,
         season=dp.panel.season, levels=levels, summary=summary,
     )
+    b.point, b.lower, b.upper = b.point[:, gap:], b.lower[:, :, gap:], b.upper[:, :, gap:]
     reason = [None if ok else "too-short" for ok in b.ok]
     message = ["" if ok else b.message for ok in b.ok]
     return ForecasterResult(spec, b.point, b.lower, b.upper, reason, message)

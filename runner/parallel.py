@@ -137,7 +137,8 @@ def run_with_timer(task: ModelTask, shared: SharedData, fit_timeout: float) -> T
     timer re-fires every half second, so a fit that swallows the first interruption is
     interrupted again.
     """
-    if not hasattr(signal, "setitimer") or threading.current_thread() is not threading.main_thread():
+    in_main = threading.current_thread() is threading.main_thread()
+    if not hasattr(signal, "setitimer") or not in_main:
         return run_model_task(task, shared)
     armed = [True]
 
@@ -557,7 +558,7 @@ def _run_dask(
     else:
         cluster = LocalCluster(
             n_workers=jobs, threads_per_worker=1, processes=True, host="127.0.0.1",
-            dashboard_address=None, silence_logs=logging.ERROR,
+            dashboard_address="127.0.0.1:0", silence_logs=logging.ERROR,
         )
         client = Client(cluster)
     run_id = uuid.uuid4().hex

@@ -102,7 +102,8 @@ def validate_forecasters(cfg: Config, config_path: str | Path) -> None:
         try:
             factory = load_entry(entry)
         except PluginError as exc:
-            raise PluginError(f"{src}: {field}: {exc}") from None
+            msg = str(exc).removeprefix("entry ")  # the field already says it is the entry
+            raise PluginError(f"{src}: {field}: {msg}") from None
         accepted = _accepted(factory)
         if accepted is not None:
             unknown = [k for k in spec.params if k not in accepted]

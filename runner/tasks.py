@@ -22,9 +22,9 @@ from .forecast import as_forecast
 class ModelTask:
     """Fit one forecaster on ``values[start:end]`` of one dataset and forecast ``horizon`` steps.
 
-    ``test_start`` is the index of the first forecast step (``end + gap``); the covariates of
-    the test block are ``covariates[test_start:test_start + horizon]``. The target values of the
-    test block are never given to the forecaster.
+    ``test_start`` is the index of the first scored step (``end + gap``); the forecaster
+    forecasts ``gap + horizon`` steps and is given the covariates of all of them. The target
+    values after ``end`` are never given to the forecaster.
     """
 
     index: int
@@ -53,7 +53,7 @@ class TaskOutcome:
 
     ``lower`` and ``upper`` have one row per interval level (NaN where the forecaster gives no
     interval). ``reason`` is None on success, else one of ``error``, ``invalid-output``,
-    ``timeout``, ``crash``, ``too-short``.
+    ``timeout``, ``crash``, ``too-short``, ``not-run`` (skipped after ``on_error: stop``).
     """
 
     index: int
@@ -80,13 +80,22 @@ def failed(index: int, reason: str, message: str, seconds: float = 0.0) -> TaskO
 def task_slices(
     task: ModelTask, shared: SharedData, with_covariates: bool
 ) -> tuple[np.ndarray, np.ndarray | None, np.ndarray | None]:
-    """Training values, training covariates and test-block covariates of ``task`` (views)."""
+    """Training values, training covariates and future covariates of ``task`` (views).
+
+    The future covariates run from the end of training to the end of the test block: with a
+    ``gap`` the forecaster forecasts through the gap, and only the last ``horizon`` steps are
+    scored.
+    """
     y = shared.values[task.dataset][task.start : task.end]
     cov = shared.covariates[task.dataset] if with_covariates else None
     if cov is None:
         return y, None, None
-    h = shared.horizon
-    return y, cov[task.start : task.end], cov[task.test_start : task.test_start + h]
+    return y, cov[task.start : task.end], cov[task.end : task.test_start + shared.horizon]
+
+
+def lead_steps(task: ModelTask, horizon: int) -> int:
+    """Steps a forecaster must forecast: through the gap, then the ``horizon`` scored steps."""
+    return task.test_start - task.end + horizon
 
 
 def run_model_task(task: ModelTask, shared: SharedData) -> TaskOutcome:
@@ -110,7 +119,8 @@ def run_model_task(task: ModelTask, shared: SharedData) -> TaskOutcome:
         fitted = model.fit(y, **fit_kwargs)
         if fitted is None:
             fitted = model
-        raw = fitted.predict(shared.horizon, **predict_kwargs)
+        steps = lead_steps(task, shared.horizon)
+        raw = fitted.predict(steps, **predict_kwargs)
     except Exception as exc:
         last = traceback.extract_tb(exc.__traceback__)[-1:]
         where = f" at {last[0].filename.rsplit('/', 1)[-1]}:{last[0].lineno}" if last else ""
@@ -118,17 +128,19 @@ def run_model_task(task: ModelTask, shared: SharedData) -> TaskOutcome:
             task.index, "error", f"{type(exc).__name__}: {exc}{where}", time.perf_counter() - t0
         )
     try:
-        fc = as_forecast(raw, shared.horizon, shared.levels)
+        fc = as_forecast(raw, steps, shared.levels)
     except ValueError as exc:
         return failed(task.index, "invalid-output", str(exc), time.perf_counter() - t0)
     n_levels = len(shared.levels)
     lower = np.full((n_levels, shared.horizon), np.nan)
     upper = np.full((n_levels, shared.horizon), np.nan)
+    scored = slice(steps - shared.horizon, steps)  # the gap's steps are not scored
     for i, level in enumerate(shared.levels):
         if level in fc.lower and level in fc.upper:
-            lower[i] = fc.lower[level]
-            upper[i] = fc.upper[level]
+            lower[i] = fc.lower[level][scored]
+            upper[i] = fc.upper[level][scored]
     info = dict(getattr(fitted, "info_", None) or {})
     return TaskOutcome(
-        task.index, fc.point, lower, upper, info=info, seconds=time.perf_counter() - t0
+        task.index, fc.point[scored], lower, upper, info=info,
+        seconds=time.perf_counter() - t0,
     )

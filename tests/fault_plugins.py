@@ -6,6 +6,7 @@ Each misbehaving plugin misbehaves only on a training slice of one chosen length
 
 from __future__ import annotations
 
+import builtins
 import ctypes
 import os
 import time
@@ -133,11 +134,15 @@ class Segfaults(Exits):
 
 
 class Raises(Exits):
-    """Raises ``ValueError`` when the training slice has ``when_length`` values."""
+    """Raises the builtin exception ``error`` when the training slice has ``when_length``."""
+
+    def __init__(self, when_length: int = 0, error: str = "ValueError") -> None:
+        super().__init__(when_length)
+        self.error = error
 
     def fit(self, y, *, season, covariates=None):
         if len(y) == self.when_length:
-            raise ValueError("refusing this slice")
+            raise getattr(builtins, self.error)("refusing this slice")
         self.last_ = float(y[-1])
         return self
 

@@ -16,11 +16,11 @@ from pathlib import Path
 import fault_plugins
 import numpy as np
 import pytest
-import statsmodels.api as sm
+from statsmodels.datasets import macrodata
 from test_parallel import macro_work, plugin, same_outcomes
 
 from runner.cache import CACHE_FILE, ForecastCache, count_cached, task_keys
-from runner.config import ExecutionConfig, ForecasterSpec
+from runner.config import ExecutionConfig
 from runner.engine import forecast_models
 from runner.tasks import ModelTask, SharedData
 
@@ -33,7 +33,7 @@ def key_of(task: ModelTask, shared: SharedData) -> bytes:
 
 @pytest.fixture
 def base():
-    values = sm.datasets.macrodata.load_pandas().data["realgdp"].to_numpy(float)[:40]
+    values = macrodata.load_pandas().data["realgdp"].to_numpy(float)[:40]
     cov = np.column_stack([np.arange(40.0), np.sin(np.arange(40.0))])
     specs = [plugin("line", "LineFit"), plugin("cov", "CovariateMean")]
     shared = SharedData([values], [cov], specs, 4, (80.0,))
@@ -131,7 +131,7 @@ def _folds(values_per_series: list[np.ndarray], n_folds: int = 5, horizon: int =
     specs = [plugin("line", "LineFit"), plugin("half", "LineFit", weight=0.5)]
     flat = np.concatenate(values_per_series)
     tasks, offset = [], 0
-    for s, v in enumerate(values_per_series):
+    for v in values_per_series:
         scheme = Scheme("expanding", train=20, horizon=horizon, step=horizon, folds=n_folds)
         bounds = fold_bounds(len(v), scheme) + offset
         for f in range(len(specs)):
@@ -142,7 +142,7 @@ def _folds(values_per_series: list[np.ndarray], n_folds: int = 5, horizon: int =
 
 
 def test_incremental_reruns_after_appending_and_after_revising(tmp_path):
-    data = sm.datasets.macrodata.load_pandas().data
+    data = macrodata.load_pandas().data
     series = [data[c].to_numpy(float) for c in ("realgdp", "realcons", "realinv")]
     ex = ExecutionConfig(jobs=1, cache=str(tmp_path))
     tasks, shared = _folds([s[:60] for s in series])
@@ -225,7 +225,7 @@ def test_two_runs_sharing_a_cache_at_once_do_not_corrupt_it(tmp_path):
 
 def test_cache_info_and_prune_commands(tmp_path, cli):
     csv = tmp_path / "macro.csv"
-    data = sm.datasets.macrodata.load_pandas().data
+    data = macrodata.load_pandas().data
     frame = data[["realgdp", "realcons"]].iloc[:48].copy()
     frame.insert(0, "quarter", range(48))
     frame.to_csv(csv, index=False)

@@ -14,14 +14,13 @@ import time
 from pathlib import Path
 
 import pytest
-import statsmodels.api as sm
+from distributed import Client
+from statsmodels.datasets import macrodata
 from test_parallel import macro_work, plugin, same_outcomes
 
 from runner.config import ExecutionConfig, ForecasterSpec
 from runner.engine import forecast_models
 from runner.parallel import execute
-
-DASK = [sys.executable, "-m", "distributed.cli.dask_scheduler"]
 
 
 @pytest.fixture(scope="module")
@@ -45,17 +44,22 @@ def scheduler(tmp_path_factory):
              "--nthreads", "1", "--no-dashboard", "--host", "127.0.0.1"],
             stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL,
         ))
-        from distributed import Client
-
         with Client(address, timeout="30s") as client:
             client.wait_for_workers(2, timeout=60)
         yield address
     finally:
+        if len(procs) == 2:
+            try:
+                with Client(address, timeout="10s") as client:
+                    client.shutdown()  # scheduler and workers, at once
+            except Exception:
+                pass
         for p in reversed(procs):
-            p.terminate()
+            if p.poll() is None:
+                p.terminate()
         for p in procs:
             try:
-                p.wait(timeout=20)
+                p.wait(timeout=3)
             except subprocess.TimeoutExpired:
                 p.kill()
 
@@ -65,16 +69,17 @@ def test_dask_cluster_gives_the_local_outcomes_and_isolates_faults(scheduler):
     specs = [plugin("line", "LineFit"), theta,
              plugin("stuck", "Stubborn", seconds=600, when_length=48),
              plugin("exits", "Exits", when_length=52)]
-    tasks, shared = macro_work(specs, columns=["realgdp", "cpi"], folds=3)
-    local = execute(tasks, shared, jobs=1, fit_timeout=1.0)
+    tasks, shared = macro_work(specs, columns=["realgdp"], folds=3)
+    keep = [k for k, t in enumerate(tasks) if t.forecaster < 2]
+    # (in process, Stubborn would defeat the timer: it swallows the interruption)
+    local = execute([tasks[k] for k in keep], shared, jobs=1)
     t0 = time.monotonic()
     remote = execute(tasks, shared, engine="dask", address=scheduler, fit_timeout=1.0)
     assert time.monotonic() - t0 < 60
     expected = {(2, 48): "timeout", (3, 52): "crash"}
     for t, o in zip(tasks, remote):
         assert o.reason == expected.get((t.forecaster, t.end - t.start)), (t, o.message)
-    keep = [k for k, t in enumerate(tasks) if t.forecaster < 2]
-    assert same_outcomes([local[k] for k in keep], [remote[k] for k in keep])
+    assert same_outcomes(local, [remote[k] for k in keep])
 
 
 def test_dask_without_address_starts_a_local_cluster(tmp_path):
@@ -106,7 +111,7 @@ def _config(folder: Path, name: str, execution: str) -> Path:
 def test_leaderboard_bytes_are_the_same_for_every_way_of_running(tmp_path, scheduler):
     import runner
 
-    data = sm.datasets.macrodata.load_pandas().data
+    data = macrodata.load_pandas().data
     frame = data[["realgdp", "realcons", "cpi"]].iloc[:56].copy()
     frame.insert(0, "quarter", range(56))
     frame.to_csv(tmp_path / "macro.csv", index=False)

@@ -60,13 +60,19 @@ def test_fit_past_the_timeout_gets_its_worker_replaced():
     )
 
 
-def test_worker_that_exits_or_segfaults_fails_only_its_task():
+def test_worker_that_exits_or_segfaults_fails_only_its_task(tmp_path):
     tasks, shared = macro_work([plugin("line", "LineFit"),
                                 plugin("exits", "Exits", when_length=BAD)],
                                columns=["realgdp", "cpi", "realcons"])
-    out = execute(tasks, shared, jobs=2)
+    ex = ExecutionConfig(jobs=2, cache=str(tmp_path))
+    out, counts = forecast_models(tasks, shared, ex, quiet=True)
     _check_only_bad_failed(tasks, out, "crash")
     assert "died (exit code 3)" in next(o.message for o in out if o.reason == "crash")
+    assert (counts.computed, counts.failed) == (len(tasks) - 3, 3)
+    # crashes are not remembered by the cache: the next run tries them again
+    out, counts = forecast_models(tasks, shared, ex, quiet=True)
+    assert (counts.cached, counts.failed, counts.computed) == (len(tasks) - 3, 3, 0)
+    _check_only_bad_failed(tasks, out, "crash")
     tasks, shared = macro_work([plugin("line", "LineFit"),
                                 plugin("segv", "Segfaults", when_length=BAD)],
                                columns=["realgdp"])
@@ -83,7 +89,7 @@ from runner.config import ExecutionConfig
 from runner.engine import forecast_models
 tasks, shared = macro_work([plugin("slow", "SlowLine", delay=0.04)],
                            columns=["realgdp", "realcons", "realinv", "cpi", "m1"],
-                           folds=12, length=100)
+                           folds=8, length=100)
 out, counts = forecast_models(tasks, shared, ExecutionConfig(jobs={jobs}, cache={cache!r}),
                               quiet=True)
 print("counts", counts.computed, counts.cached, counts.failed)
@@ -126,11 +132,11 @@ def _finish_and_compare(cache: Path, killed_entries: int) -> None:
     out, err = resumed.communicate(timeout=120)
     assert resumed.returncode == 0, err
     computed, cached, failed = (int(x) for x in out.split()[1:])
-    assert failed == 0 and computed + cached == 60
+    assert failed == 0 and computed + cached == 40
     assert cached >= killed_entries  # everything committed before the kill was kept
     with ForecastCache.open(cache) as c:
         assert c.conn.execute("PRAGMA integrity_check").fetchall() == [("ok",)]
-        assert c.entries() == 60
+        assert c.entries() == 40
 
 
 def test_run_killed_with_sigkill_leaves_a_consistent_cache_and_resumes(tmp_path):
@@ -145,7 +151,7 @@ def test_run_killed_with_sigkill_leaves_a_consistent_cache_and_resumes(tmp_path)
     assert proc.returncode == -signal.SIGKILL
     with ForecastCache.open(tmp_path) as c:  # opens without a "damaged" rebuild
         left = c.entries()
-    assert seen <= left < 60
+    assert seen <= left < 40
     _finish_and_compare(tmp_path, left)
     # the workers of the killed run did not outlive it
     for pid in workers:
@@ -161,16 +167,22 @@ def test_run_interrupted_with_ctrl_c_stops_and_resumes(tmp_path):
     assert proc.returncode != 0 and "KeyboardInterrupt" in err
     with ForecastCache.open(tmp_path) as c:
         left = c.entries()
-    assert 10 <= left < 60
+    assert 10 <= left < 40
     _finish_and_compare(tmp_path, left)
 
 
-def test_engine_counts_failures_and_keeps_them_out_of_the_cache(tmp_path):
+def test_failures_that_follow_from_the_data_are_cached_and_transient_ones_are_not(tmp_path):
     tasks, shared = macro_work([plugin("line", "LineFit"),
-                                plugin("exits", "Exits", when_length=BAD)],
+                                plugin("raises", "Raises", when_length=BAD),
+                                plugin("memory", "Raises", when_length=BAD, error="MemoryError")],
                                columns=["realgdp", "cpi"])
-    ex = ExecutionConfig(jobs=2, cache=str(tmp_path))
-    _, counts = forecast_models(tasks, shared, ex, quiet=True)
-    assert (counts.computed, counts.failed) == (len(tasks) - 2, 2)
-    _, counts = forecast_models(tasks, shared, ex, quiet=True)  # failures are tried again
-    assert (counts.cached, counts.failed, counts.computed) == (len(tasks) - 2, 2, 0)
+    ex = ExecutionConfig(jobs=1, cache=str(tmp_path))
+    first, counts = forecast_models(tasks, shared, ex, quiet=True)
+    assert (counts.failed, counts.computed) == (4, len(tasks) - 4)
+    again, counts = forecast_models(tasks, shared, ex, quiet=True)
+    assert (counts.failed, counts.cached, counts.computed) == (4, len(tasks) - 4, 0)
+    by_kind = {t.forecaster: o for t, o in zip(tasks, again) if not o.ok}
+    assert by_kind[1].cached and by_kind[1].message == next(
+        o.message for t, o in zip(tasks, first) if t.forecaster == 1 and not o.ok)
+    assert by_kind[1].message.startswith("ValueError: refusing this slice")
+    assert not by_kind[2].cached and by_kind[2].message.startswith("MemoryError")

@@ -10,7 +10,7 @@ import io
 
 import numpy as np
 import pytest
-import statsmodels.api as sm
+from statsmodels.datasets import macrodata
 
 from runner.config import ExecutionConfig, ForecasterSpec
 from runner.engine import forecast_models
@@ -40,7 +40,7 @@ def macro_work(
     values: np.ndarray | None = None,
 ) -> tuple[list[ModelTask], SharedData]:
     """Tasks over the first ``length`` quarters of some macrodata series, end to end."""
-    data = sm.datasets.macrodata.load_pandas().data
+    data = macrodata.load_pandas().data
     if values is None:
         values = np.concatenate([data[c].to_numpy(float)[:length] for c in columns])
     n = len(values) // len(columns)

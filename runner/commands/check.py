@@ -48,7 +48,7 @@ def main(args: argparse.Namespace) -> int:
 
 
 def _count_cached(plan) -> int | None:
-    from ..engine import count_cached
+    from ..cache import count_cached
     from ..evaluate import build_model_tasks, cache_path
 
     path = cache_path(plan.config)

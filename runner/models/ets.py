@@ -52,9 +52,10 @@ class ETS:
     for the linear models (additive error, additive or no trend and seasonal) and otherwise
     simulated from 1000 seeded sample paths, as statsmodels offers them.
 
-    >>> m = ETS(trend="add").fit(np.arange(1.0, 21.0), season=1)
-    >>> m.predict(2).round(3).tolist()
-    [21.0, 22.0]
+    >>> y = 10.0 + np.arange(30.0) + np.sin(np.arange(30.0))
+    >>> f = ETS(trend="add").fit(y, season=1).predict(2, levels=(80.0,))
+    >>> f.point.shape, bool(np.all(f.lower[80.0] < f.upper[80.0]))
+    ((2,), True)
     """
 
     version = "1"

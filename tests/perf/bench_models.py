@@ -11,7 +11,7 @@ of each is compared. castgrid's serial path holds BLAS to one thread (as its wor
 do), which is faster for these small fits than BLAS's default threads, so a third path, the
 plain loop under the same one-thread limit (threadpoolctl), isolates castgrid's own overhead.
 
-    python tests/perf/bench_models.py [--series 200] [--rounds 2] [--profile]
+    python tests/perf/bench_models.py [--series 200] [--rounds 2] [--paired] [--profile]
 """
 
 from __future__ import annotations
@@ -28,7 +28,7 @@ from statsmodels.tsa.forecasting.theta import ThetaModel
 
 from runner.config import ForecasterSpec
 from runner.parallel import execute
-from runner.tasks import ModelTask, SharedData
+from runner.tasks import ModelTask, SharedData, run_model_task
 from runner.windows import Scheme, fold_bounds
 
 HORIZON, SEASON, FOLDS, TRAIN = 6, 12, 5, 60
@@ -46,8 +46,8 @@ def make_series(count: int, seed: int = 0) -> list[np.ndarray]:
     return out
 
 
-def castgrid_path(values: list[np.ndarray]) -> list[np.ndarray]:
-    """Build the tasks and run them as a castgrid run does (jobs=1, no cache)."""
+def build(values: list[np.ndarray]) -> tuple[list[ModelTask], SharedData]:
+    """The run's tasks (series-major, then forecaster, then fold) and its shared data."""
     specs = [
         ForecasterSpec(name="arima", kind="arima", role="candidate", params={"order": [1, 1, 1]}),
         ForecasterSpec(name="theta", kind="theta", role="candidate", params={}),
@@ -67,6 +67,12 @@ def castgrid_path(values: list[np.ndarray]) -> list[np.ndarray]:
         horizon=HORIZON,
         levels=(),
     )
+    return tasks, shared
+
+
+def castgrid_path(values: list[np.ndarray]) -> list[np.ndarray]:
+    """Build the tasks and run them as a castgrid run does (jobs=1, no cache)."""
+    tasks, shared = build(values)
     outcomes = execute(tasks, shared, jobs=1)
     return [o.point if o.ok else np.full(HORIZON, np.nan) for o in outcomes]
 
@@ -90,6 +96,41 @@ def plain_loop(values: list[np.ndarray]) -> list[np.ndarray]:
     return out
 
 
+def direct_fit(train: np.ndarray, model: str) -> np.ndarray:
+    """One direct statsmodels fit and forecast, as the plain loop does it."""
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        if model == "arima":
+            return np.asarray(ARIMA(train, order=(1, 1, 1)).fit().forecast(HORIZON))
+        return ThetaModel(train, period=SEASON).fit().forecast(HORIZON).to_numpy()
+
+
+def paired(values: list[np.ndarray]) -> tuple[float, float]:
+    """Per task, a direct fit and castgrid's run_model_task back to back (BLAS one thread).
+
+    Slow spells of the machine then hit both sides of each pair alike, so the ratio of the
+    sums measures castgrid's own per-task cost with little noise.
+    """
+    from threadpoolctl import threadpool_limits
+
+    tasks, shared = build(values)
+    direct_s = castgrid_s = 0.0
+    with threadpool_limits(1):
+        for i, task in enumerate(tasks):
+            train = shared.values[task.dataset][task.start : task.end]
+            model = shared.forecasters[task.forecaster].kind
+            order = ("direct", "castgrid") if i % 2 == 0 else ("castgrid", "direct")
+            for side in order:
+                t0 = time.perf_counter()
+                if side == "direct":
+                    direct_fit(train, model)
+                    direct_s += time.perf_counter() - t0
+                else:
+                    run_model_task(task, shared)
+                    castgrid_s += time.perf_counter() - t0
+    return direct_s, castgrid_s
+
+
 def plain_loop_one_thread(values: list[np.ndarray]) -> list[np.ndarray]:
     """The plain loop with BLAS held to one thread, as castgrid's serial path holds it."""
     from threadpoolctl import threadpool_limits
@@ -104,6 +145,9 @@ def main() -> None:
     ap.add_argument("--series", type=int, default=200)
     ap.add_argument("--rounds", type=int, default=2)
     ap.add_argument("--profile", action="store_true", help="profile one castgrid round")
+    ap.add_argument(
+        "--paired", action="store_true", help="also time each task direct vs castgrid in pairs"
+    )
     args = ap.parse_args()
     values = make_series(args.series)
     n_tasks = args.series * FOLDS * 2
@@ -150,6 +194,13 @@ def main() -> None:
         f"(castgrid failures recorded: {failed}; the rest are fits statsmodels left "
         "unconverged at 50 iterations, which castgrid's default of 200 lets finish)"
     )
+    if args.paired:
+        direct_s, castgrid_s = paired(values)
+        print(
+            f"  paired per task (BLAS one thread): direct {direct_s:.2f} s, run_model_task "
+            f"{castgrid_s:.2f} s, ratio {castgrid_s / direct_s:.3f}, overhead "
+            f"{(castgrid_s - direct_s) / n_tasks * 1e3:.3f} ms/task"
+        )
     if args.profile:
         prof = cProfile.Profile()
         prof.runcall(castgrid_path, values[: max(1, args.series // 10)])
