@@ -91,6 +91,24 @@ def minimum_length(
     return lost + max(n_params + 1, p + sp * s + 1, q + sq * s + 1)
 
 
+def predict_fitted(
+    model: Any, name: str, horizon: int, covariates: np.ndarray | None,
+    levels: tuple[float, ...],
+) -> np.ndarray | Forecast:
+    """``predict`` of a fitted statsmodels ARIMA kept in ``model.result_`` (arima, auto_arima)."""
+    res = require_fitted(model, "result_")
+    horizon = horizon_steps(horizon, name)
+    levels = check_levels(levels, name)
+    exog = covariate_matrix(covariates, horizon, name, "forecast")
+    got = 0 if exog is None else exog.shape[1]
+    if got != model.n_exog_:
+        raise ValueError(
+            f"{name}: fitted with {model.n_exog_} covariate column(s), predict got {got}"
+        )
+    with quiet():
+        return arima_point_and_bounds(res, horizon, levels, exog)
+
+
 def arima_point_and_bounds(
     res: Any, horizon: int, levels: tuple[float, ...], exog: np.ndarray | None
 ) -> np.ndarray | Forecast:
@@ -186,14 +204,4 @@ class Arima:
         levels: tuple[float, ...] = (),
     ) -> np.ndarray | Forecast:
         """Forecast ``horizon`` steps; ``covariates`` are the regressors over those steps."""
-        res = require_fitted(self, "result_")
-        horizon = horizon_steps(horizon, "arima")
-        levels = check_levels(levels, "arima")
-        exog = covariate_matrix(covariates, horizon, "arima", "forecast")
-        got = 0 if exog is None else exog.shape[1]
-        if got != self.n_exog_:
-            raise ValueError(
-                f"arima: fitted with {self.n_exog_} covariate column(s), predict got {got}"
-            )
-        with quiet():
-            return arima_point_and_bounds(res, horizon, levels, exog)
+        return predict_fitted(self, "arima", horizon, covariates, levels)

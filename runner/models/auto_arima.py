@@ -45,18 +45,15 @@ from ..forecast import Forecast
 from ._common import (
     ConvergenceError,
     boolean,
-    check_levels,
     covariate_matrix,
-    horizon_steps,
     need_length,
     number,
     positive_int,
     quiet,
-    require_fitted,
     season_length,
     series,
 )
-from .arima import arima_point_and_bounds, minimum_length
+from .arima import minimum_length, predict_fitted
 
 SEASONAL_STRENGTH_THRESHOLD = 0.64
 ROOT_MARGIN = 1.01
@@ -302,14 +299,4 @@ class AutoArima:
         levels: tuple[float, ...] = (),
     ) -> np.ndarray | Forecast:
         """Forecast ``horizon`` steps with the chosen model (regressors over those steps)."""
-        res = require_fitted(self, "result_")
-        horizon = horizon_steps(horizon, "auto_arima")
-        levels = check_levels(levels, "auto_arima")
-        exog = covariate_matrix(covariates, horizon, "auto_arima", "forecast")
-        got = 0 if exog is None else exog.shape[1]
-        if got != self.n_exog_:
-            raise ValueError(
-                f"auto_arima: fitted with {self.n_exog_} covariate column(s), predict got {got}"
-            )
-        with quiet():
-            return arima_point_and_bounds(res, horizon, levels, exog)
+        return predict_fitted(self, "auto_arima", horizon, covariates, levels)
