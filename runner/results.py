@@ -63,12 +63,14 @@ def manifest(ev: Evaluation) -> dict[str, Any]:
         "config_hash": config_hash(cfg),
         "data": {
             dr.plan.panel.name: {
-                "path": dr.plan.panel.path,
+                # as written in the config (relative to it), so the manifest is the same in
+                # every checkout
+                "path": ds.path,
                 "fingerprint": dr.plan.panel.fingerprint,
                 "series": dr.plan.panel.n_series,
                 "observations": int(len(dr.plan.panel.values)),
             }
-            for dr in ev.datasets
+            for dr, ds in zip(ev.datasets, cfg.datasets)
         },
         "versions": _versions(),
         "tasks": {
