@@ -87,7 +87,8 @@ sys.path[:0] = [{tests!r}]
 from test_parallel import macro_work, plugin
 from runner.config import ExecutionConfig
 from runner.engine import forecast_models
-tasks, shared = macro_work([plugin("slow", "SlowLine", delay=0.04)],
+# slow enough (40 tasks x 0.2 s on 2 workers) that the signal lands mid-run, not after it
+tasks, shared = macro_work([plugin("slow", "SlowLine", delay=0.2)],
                            columns=["realgdp", "realcons", "realinv", "cpi", "m1"],
                            folds=8, length=100)
 out, counts = forecast_models(tasks, shared, ExecutionConfig(jobs={jobs}, cache={cache!r}),
