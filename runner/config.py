@@ -43,6 +43,13 @@ _SHARE = re.compile(r"^\s*(\d+(?:\.\d+)?)\s*%\s*$")
 _NAME = re.compile(r"^[A-Za-z0-9][A-Za-z0-9._-]*$")
 
 
+def _simple_name(v: str) -> str:
+    """Names end up in folder names and table cells: keep them to a safe alphabet."""
+    if not _NAME.match(v):
+        raise ValueError(f"expected letters, digits, '.', '_' or '-', got {json.dumps(v)}")
+    return v
+
+
 class _Strict(BaseModel):
     model_config = ConfigDict(extra="forbid", frozen=True)
 
@@ -64,9 +71,7 @@ class DatasetConfig(_Strict):
     @field_validator("name")
     @classmethod
     def _name_is_simple(cls, v: str) -> str:
-        if not _NAME.match(v):
-            raise ValueError(f"expected letters, digits, '.', '_' or '-', got {json.dumps(v)}")
-        return v
+        return _simple_name(v)
 
     @field_validator("series")
     @classmethod
@@ -173,9 +178,7 @@ class ModelConfig(_Strict):
     @field_validator("name")
     @classmethod
     def _name_is_simple(cls, v: str) -> str:
-        if not _NAME.match(v):
-            raise ValueError(f"expected letters, digits, '.', '_' or '-', got {json.dumps(v)}")
-        return v
+        return _simple_name(v)
 
     @field_validator("grid")
     @classmethod
@@ -228,9 +231,7 @@ class Config(_Strict):
     @field_validator("experiment")
     @classmethod
     def _experiment_is_simple(cls, v: str) -> str:
-        if not _NAME.match(v):
-            raise ValueError(f"expected letters, digits, '.', '_' or '-', got {json.dumps(v)}")
-        return v
+        return _simple_name(v)
 
     @field_validator("baselines", mode="before")
     @classmethod

@@ -54,6 +54,7 @@ def _assert_clean_failure(res, out: Path, *needles: str) -> None:
         (("    target: y", "    target: z"), ["d.csv", '"z"']),
         (("path: d.csv", "path: nowhere.csv"), ["nowhere.csv"]),
         (("experiment: bad-input", "experiment: [x"), ["c.yaml"]),
+        (("experiment: bad-input", "experiment: bad input"), ["experiment", '"bad input"']),
     ],
 )
 def test_bad_config_exits_2_with_one_line(tmp_path, cli, change, needles):
