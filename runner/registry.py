@@ -76,18 +76,22 @@ def implementation_version(spec: ForecasterSpec) -> str:
 
 
 def identity(spec: ForecasterSpec) -> str:
-    """Canonical identity of a forecaster: kind, entry, parameters and version, as JSON.
+    """Canonical identity of a forecaster: kind, parameters, version (and a plugin's entry), as JSON.
 
     Part of every cache key, so two configs that spell the same forecaster differently share
-    their cached forecasts, and a new implementation version invalidates them.
+    their cached forecasts, and a new implementation version invalidates them. A built-in is
+    identified by its kind alone, never by the module that holds it, so moving a file inside
+    castgrid keeps every user's cache; a plugin is its entry, since that is all castgrid knows.
     """
+    fields: dict[str, Any] = {
+        "kind": spec.kind,
+        "params": spec.params,
+        "version": implementation_version(spec),
+    }
+    if spec.kind == "plugin":
+        fields["entry"] = entry_of(spec)
     return json.dumps(
-        {
-            "kind": spec.kind,
-            "entry": entry_of(spec),
-            "params": spec.params,
-            "version": implementation_version(spec),
-        },
+        fields,
         sort_keys=True,
         separators=(",", ":"),
         default=str,

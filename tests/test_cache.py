@@ -7,6 +7,7 @@ Data: ``statsmodels.datasets.macrodata`` (open dataset bundled with statsmodels)
 from __future__ import annotations
 
 import dataclasses
+import importlib
 import sqlite3
 import subprocess
 import sys
@@ -20,7 +21,7 @@ from statsmodels.datasets import macrodata
 from test_parallel import macro_work, plugin, same_outcomes
 
 from runner.cache import CACHE_FILE, ForecastCache, count_cached, task_keys
-from runner.config import ExecutionConfig
+from runner.config import ExecutionConfig, ForecasterSpec
 from runner.engine import forecast_models
 from runner.tasks import ModelTask, SharedData
 
@@ -113,6 +114,32 @@ def test_warm_cache_is_bit_identical_and_no_cache_bypasses_it(tmp_path):
     assert count_cached(tasks, shared, tmp_path / "missing") == 0
 
 
+def test_built_in_moved_to_another_module_keeps_its_cache(tmp_path, monkeypatch):
+    """A built-in is keyed by kind and version, not by the module that holds it."""
+    import types
+
+    from runner import registry
+
+    spec = ForecasterSpec(name="a", kind="arima", role="candidate", params={"order": [1, 0, 0]})
+    tasks, shared = macro_work([spec], folds=2)
+    ex = ExecutionConfig(jobs=1, cache=str(tmp_path / "c"))
+    cold, c1 = forecast_models(tasks, shared, ex, quiet=True)
+    assert c1.computed == len(tasks)
+    # Move the class to a module of another name, as a reorganisation of the package would.
+    module_name, _, attr = registry.BUILTIN["arima"].partition(":")
+    moved = types.ModuleType("castgrid_relocated_models")
+    setattr(moved, attr, getattr(importlib.import_module(module_name), attr))
+    monkeypatch.setitem(sys.modules, "castgrid_relocated_models", moved)
+    monkeypatch.setitem(registry.BUILTIN, "arima", f"castgrid_relocated_models:{attr}")
+    registry.load_entry.cache_clear()
+    try:
+        warm, c2 = forecast_models(tasks, shared, ex, quiet=True)
+    finally:
+        registry.load_entry.cache_clear()
+    assert (c2.cached, c2.computed) == (len(tasks), 0)
+    assert same_outcomes(cold, warm)
+
+
 def test_identical_tasks_in_one_run_are_computed_once(tmp_path):
     specs = [plugin("a", "LineFit"), plugin("b", "LineFit")]  # same identity, two names
     tasks, shared = macro_work(specs, columns=["realgdp", "realcons"])
@@ -193,7 +220,7 @@ def test_two_runs_sharing_a_cache_at_once_do_not_corrupt_it(tmp_path):
         import sys
         sys.path[:0] = [{str(REPO / 'tests')!r}]
         from test_parallel import macro_work, plugin
-        from runner.config import ExecutionConfig
+        from runner.config import ExecutionConfig, ForecasterSpec
         from runner.engine import forecast_models
         tasks, shared = macro_work([plugin("slow", "SlowLine", delay=0.015,
                                            weight=float(sys.argv[1]))],
