@@ -23,7 +23,7 @@ _EXPORTS = {
     "Config": "runner.config",
     "ConfigError": "runner.errors",
     "DataError": "runner.errors",
-    "Forecast": "runner.forecast",
+    "Forecast": "runner.forecasters.contract",
     "PluginError": "runner.errors",
     "RunResult": "runner.pipeline",
     "load_config": "runner.config",

@@ -1,5 +1,5 @@
 """``python -m runner`` is the ``castgrid`` command."""
 
-from .cli import main
+from runner.cli import main
 
 raise SystemExit(main())

@@ -13,10 +13,10 @@ from typing import Any
 
 import pandas as pd
 
-from .config import Config
-from .evaluate import Evaluation, evaluate
-from .leaderboard import build_leaderboard
-from .plan import Plan, build_plan
+from runner.config import Config
+from runner.scoring.evaluate import Evaluation, evaluate
+from runner.scoring.leaderboard import build_leaderboard
+from runner.windows.plan import Plan, build_plan
 
 
 @dataclass
@@ -62,6 +62,23 @@ def scores_frame(ev: Evaluation) -> pd.DataFrame:
     return pd.concat(frames, ignore_index=True)
 
 
+def prepare(config: str | Path | Config, config_path: Path | None = None) -> Plan:
+    """Check the config's forecasters (imports, protocol, params), then load data and plan.
+
+    Forecasters are checked before any data is read, so a misspelt entry or a bad parameter is
+    one line naming the config field, not a failed task per series.
+    """
+    from runner.config import load_config
+    from runner.forecasters.validation import validate_forecasters
+
+    if isinstance(config, (str, Path)):
+        config_path = Path(config)
+        config = load_config(config_path)
+    config_path = config_path or Path("config.yaml")
+    validate_forecasters(config, config_path)
+    return build_plan(config, config_path)
+
+
 def run(
     config: str | Path | Config | Plan,
     *,
@@ -78,15 +95,17 @@ def run(
     per-task scores as DataFrames. Bad config or data raise :class:`runner.ConfigError` /
     :class:`runner.DataError` before anything is written.
     """
-    from .results import manifest as build_manifest
-    from .results import write_results
+    from runner.output.writer import manifest as build_manifest
+    from runner.output.writer import write_results
 
-    plan = config if isinstance(config, Plan) else build_plan(config)
+    plan = config if isinstance(config, Plan) else prepare(config)
     ev = evaluate(plan, use_cache=use_cache, jobs=jobs, quiet=quiet)
     board = build_leaderboard(ev)
     target = output_dir(plan.config, out_dir) if write else None
     if target is not None:
-        man = write_results(ev, board, target, build_plots=report)
+        from runner.report.page import build_report
+
+        man = write_results(ev, board, target, finish=build_report if report else None)
     else:
         man = build_manifest(ev)
     return RunResult(board, scores_frame(ev), target, man, ev)

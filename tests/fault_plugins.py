@@ -13,7 +13,7 @@ import time
 
 import numpy as np
 
-from runner.forecast import Forecast
+from runner.forecasters.contract import Forecast
 
 
 class LineFit:

@@ -1,4 +1,4 @@
-"""Benchmark forecasters (runner.baselines) against the published formulas.
+"""Benchmark forecasters (runner.forecasters.benchmarks) against the published formulas.
 
 Source for point forecasts and interval widths: Hyndman & Athanasopoulos, Forecasting:
 Principles and Practice (3rd ed.), sections 5.2 and 5.5 (the table of benchmark forecast
@@ -12,7 +12,14 @@ from statistics import NormalDist
 import numpy as np
 import pytest
 
-from runner.baselines import Drift, Mean, Naive, SeasonalNaive, SeasonAverage, WindowAverage
+from runner.forecasters.benchmarks import (
+    Drift,
+    Mean,
+    Naive,
+    SeasonalNaive,
+    SeasonAverage,
+    WindowAverage,
+)
 
 Z95 = NormalDist().inv_cdf(0.975)
 

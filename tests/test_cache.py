@@ -20,10 +20,10 @@ import pytest
 from statsmodels.datasets import macrodata
 from test_parallel import macro_work, plugin, same_outcomes
 
-from runner.cache import CACHE_FILE, ForecastCache, count_cached, task_keys
 from runner.config import ExecutionConfig, ForecasterSpec
-from runner.engine import forecast_models
-from runner.tasks import ModelTask, SharedData
+from runner.execution.cache import CACHE_FILE, ForecastCache, count_cached, task_keys
+from runner.execution.dispatch import forecast_models
+from runner.execution.tasks import ModelTask, SharedData
 
 REPO = Path(__file__).resolve().parent.parent
 
@@ -118,7 +118,7 @@ def test_built_in_moved_to_another_module_keeps_its_cache(tmp_path, monkeypatch)
     """A built-in is keyed by kind and version, not by the module that holds it."""
     import types
 
-    from runner import registry
+    from runner.forecasters import registry
 
     spec = ForecasterSpec(name="a", kind="arima", role="candidate", params={"order": [1, 0, 0]})
     tasks, shared = macro_work([spec], folds=2)
@@ -153,7 +153,7 @@ def test_identical_tasks_in_one_run_are_computed_once(tmp_path):
 
 
 def _folds(values_per_series: list[np.ndarray], n_folds: int = 5, horizon: int = 4):
-    from runner.windows import Scheme, fold_bounds
+    from runner.windows.folds import Scheme, fold_bounds
 
     specs = [plugin("line", "LineFit"), plugin("half", "LineFit", weight=0.5)]
     flat = np.concatenate(values_per_series)
@@ -221,7 +221,7 @@ def test_two_runs_sharing_a_cache_at_once_do_not_corrupt_it(tmp_path):
         sys.path[:0] = [{str(REPO / 'tests')!r}]
         from test_parallel import macro_work, plugin
         from runner.config import ExecutionConfig, ForecasterSpec
-        from runner.engine import forecast_models
+        from runner.execution.dispatch import forecast_models
         tasks, shared = macro_work([plugin("slow", "SlowLine", delay=0.015,
                                            weight=float(sys.argv[1]))],
                                    columns=["realgdp", "realcons", "realinv", "cpi", "m1"],
@@ -273,8 +273,8 @@ def test_cache_info_and_prune_commands(tmp_path, cli):
 
     both = config("both", "{name: theta, kind: theta}, {name: ets, kind: ets}")
     theta_only = config("theta", "{name: theta, kind: theta}")
-    from runner.evaluate import build_model_tasks
-    from runner.plan import build_plan
+    from runner.execution.model_tasks import build_model_tasks
+    from runner.windows.plan import build_plan
 
     tasks, shared = build_model_tasks(build_plan(both))
     assert len(tasks) == 2 * 2 * 3

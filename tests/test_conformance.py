@@ -7,8 +7,8 @@ import threading
 import numpy as np
 import pytest
 
-from runner.forecast import Forecast
-from runner.registry import BUILTIN, load_entry
+from runner.forecasters.contract import Forecast
+from runner.forecasters.registry import BUILTIN, load_entry
 from runner.testing import (
     CHECKS,
     RecordingForecaster,
@@ -31,8 +31,8 @@ def test_every_builtin_passes(kind):
 
 
 def test_seasonal_arima_and_multiplicative_ets_pass():
-    from runner.models.arima import Arima
-    from runner.models.ets import ETS
+    from runner.forecasters.models.arima import Arima
+    from runner.forecasters.models.ets import ETS
 
     check_forecaster(
         Arima, params={"order": [1, 0, 0], "seasonal_order": [1, 0, 0]}, raise_on_failure=True

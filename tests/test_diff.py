@@ -14,7 +14,7 @@ from pathlib import Path
 import pytest
 
 from runner.cli import main
-from runner.diff import Results, compare, format_diff, relative_change, worsening
+from runner.compare.diff import Results, compare, format_diff, relative_change, worsening
 from runner.errors import DataError
 
 HEADER = ("dataset,rank,forecaster,kind,role,series,folds,tasks,failed,mae_mean,mae_sd,"

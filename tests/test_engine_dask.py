@@ -19,8 +19,8 @@ from statsmodels.datasets import macrodata
 from test_parallel import macro_work, plugin, same_outcomes
 
 from runner.config import ExecutionConfig, ForecasterSpec
-from runner.engine import forecast_models
-from runner.parallel import execute
+from runner.execution.dispatch import forecast_models
+from runner.execution.engines import execute
 
 
 @pytest.fixture(scope="module")

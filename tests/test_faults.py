@@ -16,10 +16,10 @@ from pathlib import Path
 
 from test_parallel import macro_work, plugin, same_outcomes
 
-from runner.cache import ForecastCache
 from runner.config import ExecutionConfig
-from runner.engine import forecast_models
-from runner.parallel import execute
+from runner.execution.cache import ForecastCache
+from runner.execution.dispatch import forecast_models
+from runner.execution.engines import execute
 
 REPO = Path(__file__).resolve().parent.parent
 #: macro_work's folds have training slices of 44, 48, 52 and 56 quarters.
@@ -86,7 +86,7 @@ import sys
 sys.path[:0] = [{tests!r}]
 from test_parallel import macro_work, plugin
 from runner.config import ExecutionConfig
-from runner.engine import forecast_models
+from runner.execution.dispatch import forecast_models
 # slow enough (40 tasks x 0.2 s on 2 workers) that the signal lands mid-run, not after it
 tasks, shared = macro_work([plugin("slow", "SlowLine", delay=0.2)],
                            columns=["realgdp", "realcons", "realinv", "cpi", "m1"],

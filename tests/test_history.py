@@ -16,8 +16,8 @@ import pytest
 
 from runner.cli import main
 from runner.errors import DataError
-from runner.history import append_history, parse_history, read_history
-from runner.resultsio import ResultsFolder
+from runner.output.history import append_history, parse_history, read_history
+from runner.output.reader import ResultsFolder
 
 MANIFEST = {
     "experiment": "shop-demand",

@@ -1,4 +1,4 @@
-"""Metrics (runner.metrics) against scikit-learn and the published definitions."""
+"""Metrics (runner.scoring.metrics) against scikit-learn and the published definitions."""
 
 from __future__ import annotations
 
@@ -12,7 +12,7 @@ from sklearn.metrics import (
     r2_score,
 )
 
-from runner import metrics as M
+from runner.scoring import metrics as M
 
 
 @pytest.fixture

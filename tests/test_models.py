@@ -18,13 +18,13 @@ from statsmodels.tsa.seasonal import STL
 from statsmodels.tsa.stattools import kpss
 
 from runner.config import ForecasterSpec
-from runner.forecast import Forecast
-from runner.models._common import ConvergenceError
-from runner.models.arima import Arima
-from runner.models.auto_arima import AutoArima, choose_seasonal_d
-from runner.models.ets import ETS
-from runner.models.theta import Theta
-from runner.tasks import ModelTask, SharedData, run_model_task
+from runner.execution.tasks import ModelTask, SharedData, run_model_task
+from runner.forecasters.contract import Forecast
+from runner.forecasters.models._common import ConvergenceError
+from runner.forecasters.models.arima import Arima
+from runner.forecasters.models.auto_arima import AutoArima, choose_seasonal_d
+from runner.forecasters.models.ets import ETS
+from runner.forecasters.models.theta import Theta
 
 H = 6
 

@@ -1,7 +1,8 @@
 """The execution engine runs every task the same way in process and on worker processes.
 
 Data: US macroeconomic quarterly series from ``statsmodels.datasets.macrodata`` (an open dataset
-bundled with statsmodels), cut into rolling-origin folds with :func:`runner.windows.fold_bounds`.
+bundled with statsmodels), cut into rolling-origin folds with
+:func:`runner.windows.folds.fold_bounds`.
 """
 
 from __future__ import annotations
@@ -13,11 +14,11 @@ import pytest
 from statsmodels.datasets import macrodata
 
 from runner.config import ExecutionConfig, ForecasterSpec
-from runner.engine import forecast_models
-from runner.parallel import execute, resolve_jobs
-from runner.progress import Progress
-from runner.tasks import ModelTask, SharedData
-from runner.windows import Scheme, fold_bounds
+from runner.execution.dispatch import forecast_models
+from runner.execution.engines import execute, resolve_jobs
+from runner.execution.progress import Progress
+from runner.execution.tasks import ModelTask, SharedData
+from runner.windows.folds import Scheme, fold_bounds
 
 COLUMNS = ["realgdp", "realcons", "realinv", "cpi"]
 
@@ -85,7 +86,7 @@ def test_jobs_1_and_2_give_bit_identical_outcomes_in_task_order():
 
 
 def test_statsmodels_model_is_bit_identical_across_workers_and_cache(tmp_path):
-    # theta through runner.models: real statsmodels fits, in process vs worker processes
+    # theta through runner.forecasters.models: real statsmodels fits, in process vs worker processes
     theta = ForecasterSpec(name="theta", kind="theta", role="candidate", params={})
     tasks, shared = macro_work([theta], columns=["realgdp", "cpi"], folds=3)
     serial = execute(tasks, shared, jobs=1)

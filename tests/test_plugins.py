@@ -1,5 +1,6 @@
-"""Plugin and parameter validation before a run (runner.plugins.validate_forecasters), and
-per-task failures of plugins that misbehave only when run."""
+"""Plugin and parameter validation before a run
+(runner.forecasters.validation.validate_forecasters), and per-task failures of plugins that
+misbehave only when run."""
 
 from __future__ import annotations
 
@@ -12,8 +13,8 @@ import pytest
 
 from runner.config import ForecasterSpec, parse_config
 from runner.errors import ConfigError, PluginError
-from runner.plugins import protocol_problem, validate_forecasters
-from runner.tasks import ModelTask, SharedData, run_model_task
+from runner.execution.tasks import ModelTask, SharedData, run_model_task
+from runner.forecasters.validation import protocol_problem, validate_forecasters
 
 EXAMPLES = Path(__file__).resolve().parent.parent / "examples" / "plugins"
 CONFIGS = Path(__file__).resolve().parent.parent / "configs"

@@ -18,9 +18,9 @@ import pandas as pd
 import pytest
 
 from runner.errors import DataError
-from runner.history import append_history
-from runner.report import build_report
-from runner.significance import compare_with_reference
+from runner.output.history import append_history
+from runner.report.page import build_report
+from runner.scoring.significance import compare_with_reference
 
 H = 6
 FOLDS = 4

@@ -14,7 +14,7 @@ import pytest
 from scipy import stats
 from statsmodels.tsa.stattools import acovf
 
-from runner.significance import compare_with_reference, diebold_mariano, dm_lag_order
+from runner.scoring.significance import compare_with_reference, diebold_mariano, dm_lag_order
 
 
 def test_hand_worked_case_h2() -> None:
@@ -187,7 +187,7 @@ def test_ties_are_not_wins_and_identical_forecasts_test_nothing() -> None:
 
 def test_all_series_at_once_equals_one_series_at_a_time():
     # The vectorised path must be exactly the scalar published formula, series by series.
-    from runner.significance import diebold_mariano_by_series
+    from runner.scoring.significance import diebold_mariano_by_series
 
     rng = np.random.default_rng(0)
     series = np.repeat(np.arange(40), 7)
@@ -205,7 +205,7 @@ def test_all_series_at_once_equals_one_series_at_a_time():
 
 
 def test_few_series_need_a_significant_win_on_every_series():
-    from runner.significance import compare_with_reference
+    from runner.scoring.significance import compare_with_reference
 
     rng = np.random.default_rng(5)
     n_folds, h = 12, 3

@@ -1,4 +1,5 @@
-"""Rolling-origin folds (runner.windows) against scikit-learn TimeSeriesSplit and the fold rule."""
+"""Rolling-origin folds (runner.windows.folds) against scikit-learn TimeSeriesSplit and the fold
+rule."""
 
 from __future__ import annotations
 
@@ -6,7 +7,7 @@ import numpy as np
 import pytest
 from sklearn.model_selection import TimeSeriesSplit
 
-from runner.windows import Scheme, fold_bounds
+from runner.windows.folds import Scheme, fold_bounds
 
 
 def _sklearn_folds(n, splits, test_size, gap, max_train=None):

@@ -1,7 +1,8 @@
 """Benchmark of the execution engine: workers, warm cache, and a rerun after appended data.
 
-200 series x 5 folds x {ARIMA(1,1,1), theta, ETS} (runner.models, statsmodels underneath), so
-3,000 fits per run. Prints the wall-clock seconds of :func:`runner.engine.forecast_models` for:
+200 series x 5 folds x {ARIMA(1,1,1), theta, ETS} (runner.forecasters.models, statsmodels
+underneath), so 3,000 fits per run. Prints the wall-clock seconds of
+:func:`runner.execution.dispatch.forecast_models` for:
 
 * cold, jobs=1 (no cache) and cold, jobs=2 (filling a new cache): target jobs=2 >= 1.7x faster;
 * warm, jobs=2 (the same tasks again): target >= 20x faster than the cold jobs=2 run;
@@ -23,9 +24,9 @@ import numpy as np
 import statsmodels.api as sm
 
 from runner.config import ExecutionConfig, ForecasterSpec
-from runner.engine import forecast_models
-from runner.tasks import ModelTask, SharedData
-from runner.windows import Scheme, fold_bounds
+from runner.execution.dispatch import forecast_models
+from runner.execution.tasks import ModelTask, SharedData
+from runner.windows.folds import Scheme, fold_bounds
 
 HORIZON, STEP, FOLDS, TRAIN, LENGTH = 6, 6, 5, 36, 72
 

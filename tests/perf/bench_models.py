@@ -1,7 +1,7 @@
 """Benchmark: castgrid's per-task path for statsmodels models against a plain statsmodels loop.
 
 Target: with 200 series, 5 folds, ARIMA(1,1,1) and theta, jobs=1 and no cache, castgrid's wall
-time (building the tasks and running them through ``runner.parallel.execute``) is at most
+time (building the tasks and running them through ``runner.execution.engines.execute``) is at most
 1.10 times that of a plain loop that calls statsmodels directly on the same training slices.
 
 The series are synthetic (seeded random walks with a yearly season); only the timing matters,
@@ -27,9 +27,9 @@ from statsmodels.tsa.arima.model import ARIMA
 from statsmodels.tsa.forecasting.theta import ThetaModel
 
 from runner.config import ForecasterSpec
-from runner.parallel import execute
-from runner.tasks import ModelTask, SharedData, run_model_task
-from runner.windows import Scheme, fold_bounds
+from runner.execution.engines import execute
+from runner.execution.tasks import ModelTask, SharedData, run_model_task
+from runner.windows.folds import Scheme, fold_bounds
 
 HORIZON, SEASON, FOLDS, TRAIN = 6, 12, 5, 60
 

@@ -1,0 +1,58 @@
+"""``castgrid check CONFIG``: validate config and data and print the plan, running nothing."""
+
+from __future__ import annotations
+
+import argparse
+
+
+def add_arguments(parser: argparse.ArgumentParser) -> None:
+    """Options of ``castgrid check``."""
+    parser.add_argument("config", help="the experiment's YAML config")
+
+
+def main(args: argparse.Namespace) -> int:
+    """Print datasets, series, folds per series, forecasters, tasks and how many are cached."""
+    import numpy as np
+
+    from runner.pipeline import prepare
+
+    plan = prepare(args.config)
+    cfg = plan.config
+    print(f"experiment {cfg.experiment}: horizon {cfg.horizon}, {cfg.windows.scheme} windows, "
+          f"ranked by {cfg.rank_by}")
+    for dp in plan.datasets:
+        p = dp.panel
+        folds = np.bincount(dp.series, minlength=p.n_series)[np.unique(dp.series)]
+        used = len(np.unique(dp.series))
+        lengths = np.diff(p.offsets)
+        print(
+            f"dataset {p.name} ({p.path}): {p.n_series} series, {len(p.values)} observations "
+            f"(length {lengths.min()}-{lengths.max()}), frequency {p.frequency or 'integer'}, "
+            f"season {p.season}"
+        )
+        print(
+            f"  folds per series: {folds.min()}-{folds.max()}; {used} series evaluated, "
+            f"{len(dp.skipped)} too short"
+        )
+        for s in dp.skipped:
+            print(f"  too short: {s}")
+        for note in p.notes:
+            print(f"  note: {note}")
+        names = [plan.forecasters[i].name for i in dp.forecasters]
+        print(f"  forecasters ({len(names)}): {', '.join(names)}; reference {dp.reference}")
+        print(f"  tasks: {dp.n_tasks * len(names)}")
+    cached = _count_cached(plan)
+    cached_txt = "cache off" if cached is None else f"{cached} model tasks already cached"
+    print(f"total: {plan.n_tasks} tasks ({cached_txt})")
+    return 0
+
+
+def _count_cached(plan) -> int | None:
+    from runner.execution.cache import count_cached
+    from runner.execution.model_tasks import build_model_tasks
+
+    path = plan.config.execution.cache_folder()
+    if path is None:
+        return None
+    tasks, shared = build_model_tasks(plan)
+    return count_cached(tasks, shared, path) if tasks else 0

@@ -1,1 +1,0 @@
-"""The ``run``, ``check`` and ``schema`` subcommands."""

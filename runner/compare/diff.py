@@ -1,0 +1,456 @@
+"""``castgrid diff OLD NEW``: what changed between two evaluations, and whether it is the model.
+
+For every dataset it lists forecasters added and gone, rank changes, each metric's change
+(absolute and relative), and whether the config, the data or the library versions changed, so
+a better score can be told apart from different data. ``--fail-if-worse PCT`` makes the command
+a gate: exit code 4 when a candidate's rank metric got worse by more than PCT percent.
+
+OLD and NEW are results folders or ``REV:path`` read from git (see :mod:`runner.output.reader`).
+"""
+
+from __future__ import annotations
+
+import math
+import re
+from dataclasses import dataclass, field
+from typing import TYPE_CHECKING, Any
+
+from runner.output.reader import (
+    ResultsFolder,
+    dataset_fingerprints,
+    read_leaderboard,
+    read_manifest,
+)
+
+if TYPE_CHECKING:
+    import pandas as pd
+
+#: Exit code when a candidate got worse than --fail-if-worse allows.
+EXIT_WORSE = 4
+_NUMERIC = re.compile(r"^[+-]?(\d+(\.\d*)?|\.\d+)([eE][+-]?\d+)?%?$|^-$|^$|^nan$")
+
+
+# ------------------------------------------------------------------------------ text tables
+
+
+def _numeric(cell: str) -> bool:
+    """A number, a percentage, '-' or 'a -> b' of those: right-aligned in a table."""
+    return all(_NUMERIC.match(part.strip()) for part in cell.split(" -> "))
+
+
+def render_table(header: list[str], rows: list[list[Any]], markdown: bool = False,
+                 indent: str = "") -> str:
+    """A plain-text table (columns padded, numbers right-aligned) or a Markdown table."""
+    cells = [[str(c) for c in header]] + [["" if c is None else str(c) for c in r] for r in rows]
+    ncol = len(header)
+    right = [
+        len(cells) > 1 and all(_numeric(r[i]) for r in cells[1:]) for i in range(ncol)
+    ]
+    if markdown:
+        esc = [[c.replace("|", "\\|") for c in r] for r in cells]
+        lines = ["| " + " | ".join(esc[0]) + " |",
+                 "|" + "|".join("---:" if right[i] else "---" for i in range(ncol)) + "|"]
+        lines += ["| " + " | ".join(r) + " |" for r in esc[1:]]
+        return "\n".join(indent + line for line in lines)
+    widths = [max(len(r[i]) for r in cells) for i in range(ncol)]
+
+    def line(r: list[str]) -> str:
+        parts = [r[i].rjust(widths[i]) if right[i] else r[i].ljust(widths[i])
+                 for i in range(ncol)]
+        return (indent + "  ".join(parts)).rstrip()
+
+    rule = indent + "  ".join("-" * w for w in widths)
+    return "\n".join([line(cells[0]), rule] + [line(r) for r in cells[1:]])
+
+
+def _num(v: float | None) -> str:
+    if v is None or not math.isfinite(v):
+        return "-"
+    return format(v, ".6g")
+
+
+def percent_text(v: float | None) -> str:
+    if v is None or math.isnan(v):
+        return "-"
+    if math.isinf(v):
+        return "+inf%" if v > 0 else "-inf%"
+    return f"{v:+.2f}%"
+
+
+# ------------------------------------------------------------------------------ the comparison
+
+
+@dataclass
+class Results:
+    """A results folder's manifest and numeric leaderboard."""
+
+    folder: ResultsFolder
+    manifest: dict[str, Any]
+    leaderboard: pd.DataFrame
+
+    @classmethod
+    def load(cls, spec: str) -> Results:
+        """Read a folder (or ``REV:path``); DataError names what is missing."""
+        folder = ResultsFolder.open(spec)
+        manifest = read_manifest(folder)
+        board = read_leaderboard(folder, manifest["rank_by"])
+        return cls(folder, manifest, board)
+
+    @property
+    def metrics(self) -> list[str]:
+        """Metric columns of the leaderboard (``mase``, ``coverage_80``), in file order."""
+        return [c[: -len("_mean")] for c in self.leaderboard.columns if c.endswith("_mean")]
+
+    def datasets(self) -> list[str]:
+        """Datasets in leaderboard order."""
+        return list(dict.fromkeys(self.leaderboard["dataset"]))
+
+    def rows(self, dataset: str) -> dict[str, dict[str, Any]]:
+        """forecaster -> its leaderboard row (as a dict), for one dataset."""
+        part = self.leaderboard[self.leaderboard["dataset"] == dataset]
+        return {str(r["forecaster"]): r for r in part.to_dict("records")}
+
+
+def relative_change(old: float, new: float) -> float:
+    """(new - old) / |old| in percent; inf when old is 0 and new is not, NaN without values."""
+    if not (math.isfinite(old) and math.isfinite(new)):
+        return math.nan
+    if old == 0:
+        return 0.0 if new == 0 else math.copysign(math.inf, new)
+    return (new - old) / abs(old) * 100.0
+
+
+def worsening(metric: str, old: float, new: float) -> float:
+    """How much worse ``new`` is than ``old`` in percent (negative: better).
+
+    Lower is better for error metrics, closer to 0 for ``me``, higher for ``r2``; a score
+    that disappeared (NaN, e.g. every task failed) counts as infinitely worse.
+    """
+    from runner.scoring.metrics import info
+
+    if math.isfinite(old) and not math.isfinite(new):
+        return math.inf
+    direction = info(metric).better
+    if direction == "abs":
+        old, new = abs(old), abs(new)
+    elif direction == "higher":
+        old, new = -old, -new
+    elif direction == "target":
+        target = info(metric).target
+        old, new = abs(old - target), abs(new - target)
+    return relative_change(old, new)
+
+
+def _same(a: Any, b: Any) -> bool:
+    if isinstance(a, float) and isinstance(b, float):
+        return (math.isnan(a) and math.isnan(b)) or a == b
+    return a == b
+
+
+def _dict_changes(old: Any, new: Any, prefix: str = "") -> list[str]:
+    """Dotted paths of keys whose values differ between two nested JSON values."""
+    if isinstance(old, dict) and isinstance(new, dict):
+        out = []
+        for key in list(dict.fromkeys([*old, *new])):
+            path = f"{prefix}.{key}" if prefix else str(key)
+            if key not in old or key not in new:
+                out.append(path)
+            else:
+                out.extend(_dict_changes(old[key], new[key], path))
+        return out
+    return [] if old == new else [prefix or "(whole config)"]
+
+
+@dataclass
+class ForecasterChange:
+    """One forecaster of a dataset in the old and the new leaderboard."""
+
+    name: str
+    role: str
+    old_rank: float | None
+    new_rank: float | None
+    in_old: bool = True
+    in_new: bool = True
+    failed: tuple[float, float] = (0.0, 0.0)  # failed tasks, old and new
+    values: dict[str, tuple[float, float]] = field(default_factory=dict)  # metric -> (old, new)
+
+
+@dataclass
+class DatasetDiff:
+    """What changed for one dataset."""
+
+    name: str
+    status: str  # both | added | gone
+    data_changed: bool = False
+    data_note: str = ""
+    reference: tuple[str | None, str | None] = (None, None)
+    added: list[str] = field(default_factory=list)
+    gone: list[str] = field(default_factory=list)
+    forecasters: list[ForecasterChange] = field(default_factory=list)
+
+    def changed(self) -> bool:
+        """Whether anything at all differs for this dataset."""
+        if self.status != "both" or self.data_changed or self.added or self.gone:
+            return True
+        if self.reference[0] != self.reference[1]:
+            return True
+        for f in self.forecasters:
+            if (f.old_rank != f.new_rank or not (f.in_old and f.in_new)
+                    or not _same(*f.failed)):
+                return True
+            if any(not _same(o, n) for o, n in f.values.values()):
+                return True
+        return False
+
+
+@dataclass
+class Diff:
+    """The whole comparison."""
+
+    old: Results
+    new: Results
+    rank_by: str
+    config_changes: list[str]
+    version_changes: list[str]
+    datasets: list[DatasetDiff]
+
+    @property
+    def config_changed(self) -> bool:
+        """Whether the config hashes differ."""
+        return self.old.manifest["config_hash"] != self.new.manifest["config_hash"]
+
+    def changed(self) -> bool:
+        """Whether anything differs between the two folders."""
+        return (self.config_changed or bool(self.version_changes)
+                or any(d.changed() for d in self.datasets))
+
+    def worse_than(self, pct: float) -> list[tuple[str, str, float]]:
+        """(dataset, candidate, percent worse) for candidates whose rank metric got worse."""
+        out = []
+        for d in self.datasets:
+            for f in d.forecasters:
+                if f.role != "candidate" or self.rank_by not in f.values:
+                    continue
+                old, new = f.values[self.rank_by]
+                if not (f.in_old and f.in_new) or not math.isfinite(old):
+                    continue
+                w = worsening(self.rank_by, old, new)
+                if w > pct:
+                    out.append((d.name, f.name, w))
+        return out
+
+
+def _data_note(old: dict[str, Any], new: dict[str, Any]) -> str:
+    parts = []
+    for key in ("series", "observations"):
+        if key in old or key in new:
+            a, b = old.get(key, "?"), new.get(key, "?")
+            parts.append(f"{key} {a}" if a == b else f"{key} {a} -> {b}")
+    return "; ".join(parts)
+
+
+def compare(old: Results, new: Results) -> Diff:
+    """Compare two loaded results folders."""
+    rank_by = new.manifest["rank_by"]
+    metrics = list(dict.fromkeys(new.metrics + old.metrics))
+    old_fp, new_fp = dataset_fingerprints(old.manifest), dataset_fingerprints(new.manifest)
+    config_changes = []
+    if old.manifest["config_hash"] != new.manifest["config_hash"]:
+        config_changes = _dict_changes(old.manifest.get("config"), new.manifest.get("config"))
+    old_v, new_v = old.manifest.get("versions") or {}, new.manifest.get("versions") or {}
+    version_changes = [
+        f"{k} {old_v.get(k, '-')} -> {new_v.get(k, '-')}"
+        for k in dict.fromkeys([*new_v, *old_v]) if old_v.get(k) != new_v.get(k)
+    ]
+    old_ref, new_ref = old.manifest.get("reference") or {}, new.manifest.get("reference") or {}
+
+    datasets = []
+    for name in dict.fromkeys(new.datasets() + old.datasets()):
+        in_old, in_new = name in old.datasets(), name in new.datasets()
+        status = "both" if in_old and in_new else ("added" if in_new else "gone")
+        dd = DatasetDiff(name, status, reference=(old_ref.get(name), new_ref.get(name)))
+        if status == "both":
+            dd.data_changed = old_fp.get(name) != new_fp.get(name)
+        dd.data_note = _data_note(old.manifest["data"].get(name) or {},
+                                  new.manifest["data"].get(name) or {})
+        old_rows, new_rows = old.rows(name), new.rows(name)
+        dd.added = [f for f in new_rows if f not in old_rows]
+        dd.gone = [f for f in old_rows if f not in new_rows]
+        for fname in list(new_rows) + dd.gone:
+            o, n = old_rows.get(fname), new_rows.get(fname)
+            row = n if n is not None else o
+            fc = ForecasterChange(
+                fname, str(row["role"]),
+                None if o is None else _rank(o["rank"]),
+                None if n is None else _rank(n["rank"]),
+                in_old=o is not None, in_new=n is not None,
+                failed=(_failed(o), _failed(n)),
+            )
+            for m in metrics:
+                col = f"{m}_mean"
+                ov = float(o[col]) if o is not None and col in o else math.nan
+                nv = float(n[col]) if n is not None and col in n else math.nan
+                fc.values[m] = (ov, nv)
+            dd.forecasters.append(fc)
+        datasets.append(dd)
+    return Diff(old, new, rank_by, config_changes, version_changes, datasets)
+
+
+def _failed(row: dict[str, Any] | None) -> float:
+    if row is None or "failed" not in row:
+        return math.nan
+    return float(row["failed"])
+
+
+def _rank(v: Any) -> float | None:
+    v = float(v)
+    return v if math.isfinite(v) else None
+
+
+# ------------------------------------------------------------------------------ formatting
+
+
+def _rank_text(old: float | None, new: float | None) -> str:
+    a = "-" if old is None else f"{old:g}"
+    b = "-" if new is None else f"{new:g}"
+    return a if a == b else f"{a} -> {b}"
+
+
+def _failed_text(old: float, new: float) -> str:
+    a = "-" if math.isnan(old) else f"{old:g}"
+    b = "-" if math.isnan(new) else f"{new:g}"
+    return a if a == b else f"{a} -> {b}"
+
+
+def _verdict(metric: str, old: float, new: float) -> str:
+    if math.isnan(old) and math.isnan(new):
+        return ""
+    if math.isnan(old):
+        return "new"
+    if _same(old, new):
+        return "same"
+    w = worsening(metric, old, new)
+    return "worse" if w > 0 else "better" if w < 0 else "same"
+
+
+def _header(d: Diff, markdown: bool) -> list[str]:
+    om, nm = d.old.manifest, d.new.manifest
+    out = [
+        f"old: {d.old.folder.label} (experiment {om['experiment']}, "
+        f"config {om['config_hash'][:12]})",
+        f"new: {d.new.folder.label} (experiment {nm['experiment']}, "
+        f"config {nm['config_hash'][:12]})",
+    ]
+    if d.config_changed:
+        shown = ", ".join(d.config_changes[:8]) or "details not in the manifests"
+        more = f" and {len(d.config_changes) - 8} more" if len(d.config_changes) > 8 else ""
+        out.append(f"config: changed ({shown}{more})")
+    else:
+        out.append("config: unchanged")
+    out.append("versions: " + ("changed (" + ", ".join(d.version_changes) + ")"
+                               if d.version_changes else "unchanged"))
+    if om["rank_by"] != nm["rank_by"]:
+        out.append(f"rank metric: {nm['rank_by']} (was {om['rank_by']}; ranks are not "
+                   "comparable)")
+    else:
+        out.append(f"rank metric: {nm['rank_by']}")
+    return [f"- {line}" for line in out] if markdown else out
+
+
+def format_diff(d: Diff, markdown: bool = False, fail_pct: float | None = None) -> str:
+    """The comparison as readable text, or as Markdown for a review comment."""
+    lines = (["### castgrid diff", ""] if markdown else []) + _header(d, markdown)
+    m = d.rank_by
+    bullet = "- " if markdown else "  "
+    for ds in d.datasets:
+        lines.append("")
+        lines.append(f"#### dataset {ds.name}" if markdown else f"dataset {ds.name}")
+        if markdown:
+            lines.append("")
+        if ds.status != "both":
+            lines.append(f"{bullet}dataset {'added' if ds.status == 'added' else 'gone'}"
+                         + (f" ({ds.data_note})" if ds.data_note else ""))
+        else:
+            fp_old = dataset_fingerprints(d.old.manifest).get(ds.name) or "?"
+            fp_new = dataset_fingerprints(d.new.manifest).get(ds.name) or "?"
+            if ds.data_changed:
+                lines.append(f"{bullet}data: CHANGED (fingerprint {fp_old[:12]} -> "
+                             f"{fp_new[:12]}; {ds.data_note})")
+            else:
+                lines.append(f"{bullet}data: unchanged ({ds.data_note})" if ds.data_note
+                             else f"{bullet}data: unchanged")
+        ro, rn = ds.reference
+        if ro != rn and ds.status == "both":
+            lines.append(f"{bullet}reference: {ro} -> {rn}")
+        elif rn or ro:
+            lines.append(f"{bullet}reference: {rn or ro}")
+        if ds.added:
+            lines.append(f"{bullet}added: {', '.join(ds.added)}")
+        if ds.gone:
+            lines.append(f"{bullet}gone: {', '.join(ds.gone)}")
+        if markdown:
+            lines.append("")
+        header = ["rank", "forecaster", "role", f"{m} old", f"{m} new", "change", "change %",
+                  "failed", ""]
+        rows = []
+        for f in ds.forecasters:
+            old, new = f.values.get(m, (math.nan, math.nan))
+            verdict = "gone" if not f.in_new else "added" if not f.in_old else _verdict(
+                m, old, new)
+            if (fail_pct is not None and f.role == "candidate" and verdict == "worse"
+                    and worsening(m, old, new) > fail_pct):
+                verdict = f"worse > {fail_pct:g}%"
+            change = new - old if math.isfinite(old) and math.isfinite(new) else math.nan
+            rows.append([_rank_text(f.old_rank, f.new_rank), f.name, f.role, _num(old),
+                         _num(new), _num(change) if math.isfinite(change) else "-",
+                         percent_text(relative_change(old, new)), _failed_text(*f.failed), verdict])
+        lines.append(render_table(header, rows, markdown, indent="" if markdown else "  "))
+        other = []
+        for f in ds.forecasters:
+            if not (f.in_old and f.in_new):
+                continue
+            for metric, (old, new) in f.values.items():
+                if metric == m or _same(old, new):
+                    continue
+                change = new - old if math.isfinite(old) and math.isfinite(new) else math.nan
+                other.append([f.name, metric, _num(old), _num(new), _num(change),
+                              percent_text(relative_change(old, new))])
+        if other:
+            lines.append("")
+            lines.append("other metrics that changed:")
+            if markdown:
+                lines.append("")
+            lines.append(render_table(["forecaster", "metric", "old", "new", "change",
+                                       "change %"], other, markdown,
+                                      indent="" if markdown else "  "))
+        elif ds.status == "both" and ds.forecasters:
+            lines.append(f"{bullet}other metrics: unchanged")
+    lines.append("")
+    lines.append(_summary(d))
+    return "\n".join(lines)
+
+
+def _summary(d: Diff) -> str:
+    """One closing line: nothing changed, or what kinds of change there were."""
+    if not d.changed():
+        return "no change: same config, data, forecasters and scores"
+    parts = []
+    if d.config_changed:
+        parts.append("config changed")
+    if d.version_changes:
+        parts.append("library versions changed")
+    data = [ds.name for ds in d.datasets if ds.data_changed]
+    if data:
+        parts.append(f"data changed for {', '.join(data)}")
+    for status in ("added", "gone"):
+        names = [ds.name for ds in d.datasets if ds.status == status]
+        if names:
+            parts.append(f"dataset {status}: {', '.join(names)}")
+    added = sum(len(ds.added) for ds in d.datasets)
+    gone = sum(len(ds.gone) for ds in d.datasets)
+    if added or gone:
+        parts.append(f"{added} forecaster(s) added, {gone} gone")
+    moved = sum(1 for ds in d.datasets for f in ds.forecasters
+                if f.in_old and f.in_new and not _same(*f.values.get(d.rank_by, (0.0, 0.0))))
+    parts.append(f"{moved} {d.rank_by} score(s) changed")
+    return "changed: " + "; ".join(parts)

@@ -1,0 +1,391 @@
+"""Pydantic models of every config key, and the expansion of grids into forecaster specs.
+
+Unknown keys are errors everywhere (``extra="forbid"``): a typo must never fall back to a
+default silently, since that would skew every score without anyone noticing.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import itertools
+import json
+import re
+from pathlib import Path
+from typing import Any, Literal
+
+from pydantic import (
+    BaseModel,
+    ConfigDict,
+    Field,
+    field_validator,
+    model_validator,
+)
+
+BASELINE_KINDS = (
+    "naive",
+    "window_average",
+    "seasonal_naive",
+    "season_average",
+    "drift",
+    "mean",
+)
+#: Baselines that only make sense when the season length is above 1.
+SEASONAL_BASELINES = ("seasonal_naive", "season_average")
+MODEL_KINDS = ("arima", "ets", "theta", "auto_arima", "plugin")
+POINT_METRICS = ("me", "mae", "mse", "rmse", "mape", "smape", "mase", "rmsse", "r2")
+INTERVAL_METRICS = ("coverage", "winkler", "pinball")
+DEFAULT_METRICS = ["mae", "rmse", "mase", "rmsse", "smape"]
+_SHARE = re.compile(r"^\s*(\d+(?:\.\d+)?)\s*%\s*$")
+_NAME = re.compile(r"^[A-Za-z0-9][A-Za-z0-9._-]*$")
+
+
+def _simple_name(v: str) -> str:
+    """Names end up in folder names and table cells: keep them to a safe alphabet."""
+    if not _NAME.match(v):
+        raise ValueError(f"expected letters, digits, '.', '_' or '-', got {json.dumps(v)}")
+    return v
+
+
+class _Strict(BaseModel):
+    model_config = ConfigDict(extra="forbid", frozen=True)
+
+
+class DatasetConfig(_Strict):
+    """One dataset file and how to read series out of it."""
+
+    name: str
+    path: str
+    layout: Literal["long", "wide"] = "long"
+    series: str | list[str] | None = None
+    time: str
+    target: str | None = None
+    frequency: str | None = None
+    season: int | None = Field(default=None, ge=1)
+    covariates: list[str] = Field(default_factory=list)
+    missing: Literal["error", "interpolate", "zero"] = "error"
+
+    @field_validator("name")
+    @classmethod
+    def _name_is_simple(cls, v: str) -> str:
+        return _simple_name(v)
+
+    @field_validator("series")
+    @classmethod
+    def _series_not_empty(cls, v: str | list[str] | None) -> str | list[str] | None:
+        if isinstance(v, list) and not v:
+            raise ValueError("expected a column name or a non-empty list of column names")
+        return v
+
+    @model_validator(mode="after")
+    def _layout_fields(self) -> DatasetConfig:
+        if self.layout == "long":
+            missing = [k for k in ("series", "target") if getattr(self, k) is None]
+            if missing:
+                raise ValueError(f"layout long needs {' and '.join(missing)}")
+        else:
+            given = [k for k in ("series", "target") if getattr(self, k) is not None]
+            if given:
+                raise ValueError(
+                    f"layout wide takes every non-time column as a series; "
+                    f"remove {' and '.join(given)}"
+                )
+            if self.covariates:
+                raise ValueError("covariates need layout long")
+        return self
+
+    @property
+    def series_columns(self) -> list[str]:
+        """The column(s) naming a series, as a list (long layout)."""
+        if self.series is None:
+            return []
+        return [self.series] if isinstance(self.series, str) else list(self.series)
+
+
+class WindowsConfig(_Strict):
+    """The rolling-origin scheme (see :mod:`runner.windows.folds` for the fold rule)."""
+
+    scheme: Literal["expanding", "sliding"] = "expanding"
+    train: int | str
+    step: int | None = Field(default=None, ge=1)
+    folds: int | None = Field(default=None, ge=1)
+    gap: int = Field(default=0, ge=0)
+    align: Literal["end", "start"] = "end"
+
+    @field_validator("train", mode="before")
+    @classmethod
+    def _train_count_or_share(cls, v: Any) -> int | str:
+        if isinstance(v, bool):
+            raise ValueError(f'expected a count >= 1 or a share like "50%", got {json.dumps(v)}')
+        if isinstance(v, int) and v >= 1:
+            return v
+        if isinstance(v, str):
+            m = _SHARE.match(v)
+            if m and 0 < float(m.group(1)) < 100:
+                return f"{float(m.group(1)):g}%"
+        raise ValueError(f'expected a count >= 1 or a share like "50%", got {json.dumps(v)}')
+
+    def train_length(self, n: int) -> int:
+        """Training length for a series of ``n`` observations (a share is rounded down)."""
+        if isinstance(self.train, int):
+            return self.train
+        return max(1, int(n * float(self.train[:-1]) / 100.0 + 1e-9))
+
+
+class ExecutionConfig(_Strict):
+    """How tasks are run: workers, engine, cache and failure policy."""
+
+    jobs: int = -1
+    engine: Literal["local", "dask"] = "local"
+    address: str | None = None
+    cache: str | Literal[False] = "results/.cache"
+    fit_timeout: float = Field(default=120.0, gt=0)
+    on_error: Literal["record", "stop"] = "record"
+
+    @field_validator("jobs")
+    @classmethod
+    def _jobs_nonzero(cls, v: int) -> int:
+        if v == 0 or v < -1:
+            raise ValueError(f"expected a worker count >= 1 or -1 for all cores, got {v}")
+        return v
+
+    @field_validator("cache", mode="before")
+    @classmethod
+    def _cache_path_or_false(cls, v: Any) -> Any:
+        if v is True:
+            raise ValueError("expected a folder path or false, got true")
+        return v
+
+
+    def cache_folder(self) -> Path | None:
+        """The forecast cache folder (relative to the working directory), or None when off."""
+        return None if self.cache is False else Path(self.cache)
+
+
+class OutputConfig(_Strict):
+    """Where results are written."""
+
+    dir: str | None = None
+
+
+class ModelConfig(_Strict):
+    """A candidate forecaster; ``grid`` expands it into one candidate per combination."""
+
+    name: str
+    kind: Literal["arima", "ets", "theta", "auto_arima", "plugin"]
+    params: dict[str, Any] = Field(default_factory=dict)
+    grid: dict[str, list[Any]] = Field(default_factory=dict)
+    entry: str | None = None
+
+    @field_validator("name")
+    @classmethod
+    def _name_is_simple(cls, v: str) -> str:
+        return _simple_name(v)
+
+    @field_validator("grid")
+    @classmethod
+    def _grid_lists_not_empty(cls, v: dict[str, list[Any]]) -> dict[str, list[Any]]:
+        for key, values in v.items():
+            if not values:
+                raise ValueError(f"grid key {key!r}: expected a non-empty list of values")
+        return v
+
+    @model_validator(mode="after")
+    def _entry_for_plugins(self) -> ModelConfig:
+        if self.kind == "plugin" and not self.entry:
+            raise ValueError('kind plugin needs entry: "module:attribute"')
+        if self.kind != "plugin" and self.entry:
+            raise ValueError(f"entry is only for kind plugin, not {self.kind}")
+        if self.entry and not re.match(r"^[\w.]+:[\w.]+$", self.entry):
+            raise ValueError(f'entry: expected "module:attribute", got {self.entry!r}')
+        overlap = sorted(set(self.params) & set(self.grid))
+        if overlap:
+            raise ValueError(f"{overlap[0]!r} is in both params and grid; keep one")
+        return self
+
+
+class BaselineSpec(_Strict):
+    """A benchmark forecaster as written in ``baselines:`` (a name, or a name with params)."""
+
+    kind: str
+    params: dict[str, Any] = Field(default_factory=dict)
+
+
+class Config(_Strict):
+    """A whole experiment."""
+
+    experiment: str
+    description: str | None = None
+    seed: int = 0
+    horizon: int = Field(ge=1)
+    season: int | None = Field(default=None, ge=1)
+    datasets: list[DatasetConfig] = Field(min_length=1)
+    windows: WindowsConfig
+    baselines: list[BaselineSpec] | None = None
+    models: list[ModelConfig] = Field(default_factory=list)
+    metrics: list[str] = Field(default_factory=lambda: list(DEFAULT_METRICS))
+    rank_by: str = "mase"
+    reference: str | None = None
+    intervals: list[float] = Field(default_factory=list)
+    execution: ExecutionConfig = Field(default_factory=ExecutionConfig)
+    output: OutputConfig = Field(default_factory=OutputConfig)
+
+    @field_validator("experiment")
+    @classmethod
+    def _experiment_is_simple(cls, v: str) -> str:
+        return _simple_name(v)
+
+    @field_validator("baselines", mode="before")
+    @classmethod
+    def _parse_baselines(cls, v: Any) -> Any:
+        if v is None:
+            return None
+        if not isinstance(v, list):
+            raise ValueError(f"expected a list of baseline names, got {json.dumps(v)}")
+        out = []
+        for item in v:
+            if isinstance(item, str):
+                kind, params = item, {}
+            elif isinstance(item, dict) and len(item) == 1:
+                kind, params = next(iter(item.items()))
+                params = params or {}
+                if not isinstance(params, dict):
+                    raise ValueError(f"{kind}: expected a mapping of parameters, got {params!r}")
+            else:
+                raise ValueError(f"expected a baseline name or {{name: {{params}}}}, got {item!r}")
+            if kind not in BASELINE_KINDS:
+                raise ValueError(
+                    f"unknown baseline {kind!r}; expected one of {', '.join(BASELINE_KINDS)}"
+                )
+            out.append({"kind": kind, "params": params})
+        return out
+
+    @field_validator("metrics")
+    @classmethod
+    def _known_metrics(cls, v: list[str]) -> list[str]:
+        known = POINT_METRICS + INTERVAL_METRICS
+        for m in v:
+            if m not in known:
+                raise ValueError(f"unknown metric {m!r}; expected some of {', '.join(known)}")
+        if len(set(v)) != len(v):
+            raise ValueError("a metric is listed twice")
+        if not v:
+            raise ValueError("expected at least one metric")
+        return v
+
+    @field_validator("intervals")
+    @classmethod
+    def _levels_in_range(cls, v: list[float]) -> list[float]:
+        for level in v:
+            if not 0 < level < 100:
+                raise ValueError(f"expected interval levels between 0 and 100, got {level:g}")
+        if len(set(v)) != len(v):
+            raise ValueError("an interval level is listed twice")
+        return sorted(float(x) for x in v)
+
+    @model_validator(mode="after")
+    def _cross_checks(self) -> Config:
+        names = [d.name for d in self.datasets]
+        dup = sorted({n for n in names if names.count(n) > 1})
+        if dup:
+            raise ValueError(f"datasets: name {dup[0]!r} is used twice")
+        if self.rank_by not in self.metrics:
+            raise ValueError(f"rank_by: {self.rank_by!r} is not among metrics {self.metrics}")
+        if self.rank_by in INTERVAL_METRICS + ("r2",):
+            raise ValueError(
+                f"rank_by: {self.rank_by!r} cannot order a leaderboard; "
+                "expected a point error metric such as mase"
+            )
+        if set(self.metrics) & set(INTERVAL_METRICS) and not self.intervals:
+            raise ValueError("metrics: interval metrics need intervals: [levels]")
+        model_names = [c.name for c in candidate_specs(self)]
+        baseline_names = [b.name for b in baseline_specs(self)]
+        all_names = model_names + baseline_names
+        dup = sorted({n for n in all_names if all_names.count(n) > 1})
+        if dup:
+            raise ValueError(f"forecaster name {dup[0]!r} is used twice")
+        if self.reference is not None and self.reference not in baseline_names:
+            raise ValueError(
+                f"reference: {self.reference!r} is not one of the baselines "
+                f"({', '.join(baseline_names)})"
+            )
+        return self
+
+    def dataset_season(self, dataset: DatasetConfig) -> int | None:
+        """Season length set by the config for ``dataset`` (None: derive from frequency)."""
+        return dataset.season if dataset.season is not None else self.season
+
+
+class ForecasterSpec(BaseModel):
+    """One forecaster of the run after grid expansion: a unique name, a kind, its params."""
+
+    model_config = ConfigDict(frozen=True)
+
+    name: str
+    kind: str
+    role: Literal["baseline", "candidate"]
+    params: dict[str, Any]
+    entry: str | None = None
+    #: True when the baseline list was not given and this one was added as a default.
+    default: bool = False
+
+
+def _format_value(v: Any) -> str:
+    return json.dumps(v, separators=(",", ":")).replace('"', "")
+
+
+def baseline_specs(cfg: Config) -> list[ForecasterSpec]:
+    """The baselines of the run, in config order (every baseline when none are listed)."""
+    if cfg.baselines is None:
+        return [
+            ForecasterSpec(name=k, kind=k, role="baseline", params={}, default=True)
+            for k in BASELINE_KINDS
+        ]
+    out = []
+    for b in cfg.baselines:
+        name = b.kind
+        if b.params:
+            name += "[" + ",".join(f"{k}={_format_value(v)}" for k, v in b.params.items()) + "]"
+        out.append(ForecasterSpec(name=name, kind=b.kind, role="baseline", params=dict(b.params)))
+    return out
+
+
+def candidate_specs(cfg: Config) -> list[ForecasterSpec]:
+    """The candidate models after expanding every ``grid`` into its combinations."""
+    out = []
+    for m in cfg.models:
+        if not m.grid:
+            out.append(
+                ForecasterSpec(
+                    name=m.name, kind=m.kind, role="candidate", params=dict(m.params), entry=m.entry
+                )
+            )
+            continue
+        keys = list(m.grid)
+        for combo in itertools.product(*(m.grid[k] for k in keys)):
+            chosen = dict(zip(keys, combo))
+            label = ",".join(f"{k}={_format_value(v)}" for k, v in chosen.items())
+            out.append(
+                ForecasterSpec(
+                    name=f"{m.name}[{label}]",
+                    kind=m.kind,
+                    role="candidate",
+                    params={**m.params, **chosen},
+                    entry=m.entry,
+                )
+            )
+    return out
+
+
+def forecaster_specs(cfg: Config) -> list[ForecasterSpec]:
+    """Baselines then candidates: every forecaster the run evaluates."""
+    return baseline_specs(cfg) + candidate_specs(cfg)
+
+
+def canonical_json(cfg: Config) -> str:
+    """The config as canonical JSON (sorted keys, defaults filled in): the input of its hash."""
+    return json.dumps(cfg.model_dump(mode="json"), sort_keys=True, separators=(",", ":"))
+
+
+def config_hash(cfg: Config) -> str:
+    """SHA-256 of :func:`canonical_json`."""
+    return hashlib.sha256(canonical_json(cfg).encode()).hexdigest()

@@ -1,0 +1,5 @@
+"""Datasets: reading a file named by the config into a :class:`~runner.data.panel.Panel`."""
+
+from runner.data.panel import Panel, load_panel, season_for_frequency
+
+__all__ = ["Panel", "load_panel", "season_for_frequency"]

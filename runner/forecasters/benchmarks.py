@@ -1,0 +1,299 @@
+"""The benchmark forecasters, vectorised over many (series, fold) tasks at once.
+
+Each method is implemented as published in Hyndman & Athanasopoulos, *Forecasting: Principles
+and Practice* (3rd ed., 2021), section 5.2 "Some simple forecasting methods" (mean, naive,
+seasonal naive, drift), with the prediction intervals of its section 5.5 table of benchmark
+forecast standard deviations:
+
+=================  =========================================  ==========================
+method             point forecast for step h                  sigma_h
+=================  =========================================  ==========================
+mean               mean of y_1..y_T                           sigma * sqrt(1 + 1/T)
+naive              y_T                                        sigma * sqrt(h)
+seasonal naive     y_{T+h-m(k+1)}, k = floor((h-1)/m)         sigma * sqrt(k + 1)
+drift              y_T + h (y_T - y_1) / (T - 1)              sigma * sqrt(h (1 + h/(T-1)))
+=================  =========================================  ==========================
+
+sigma is the standard deviation of the method's in-sample residuals,
+``sqrt(sum(e_t^2) / (T - K - M))`` with K estimated parameters and M residuals the method
+cannot produce (the first one for naive and drift, the first m for seasonal naive). The drift
+row's ``T - 1`` follows from the variance of the drift estimate, sigma^2 / (T - 1).
+
+Two more benchmarks practitioners use have no published interval formula and give no
+intervals: ``window_average`` (mean, median or mode of the last ``size`` values, a moving
+average forecast) and ``season_average`` (the mean of the last full season for every step).
+
+The built-ins load through :mod:`runner.forecasters.registry` like any plugin, and also honour the
+per-series protocol (``fit`` / ``predict``) so the conformance checks apply to them.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from statistics import NormalDist
+
+import numpy as np
+
+from runner.forecasters.contract import Forecast
+from runner.forecasters.slices import SliceSummary, chunks, padded, summarise
+
+
+@dataclass
+class BatchForecast:
+    """Forecasts of many tasks: ``point`` (n, H); ``lower``/``upper`` (levels, n, H).
+
+    ``ok`` is False for tasks the method cannot forecast (too short a training slice);
+    ``message`` says why.
+    """
+
+    point: np.ndarray
+    lower: np.ndarray
+    upper: np.ndarray
+    ok: np.ndarray
+    message: str = ""
+
+
+def _z(levels: tuple[float, ...]) -> np.ndarray:
+    """Standard normal quantiles of central intervals at ``levels`` percent."""
+    return np.array([NormalDist().inv_cdf(0.5 + lv / 200.0) for lv in levels])
+
+
+class _Baseline:
+    """Shared per-series protocol on top of :meth:`forecast_many`."""
+
+    version = "1"
+    vectorised = True
+    uses_covariates = False
+
+    def min_length(self, season: int) -> int:
+        """Shortest training slice the method can forecast from."""
+        return 1
+
+    def forecast_many(
+        self,
+        values: np.ndarray,
+        starts: np.ndarray,
+        ends: np.ndarray,
+        horizon: int,
+        *,
+        season: int,
+        levels: tuple[float, ...] = (),
+        summary: SliceSummary | None = None,
+    ) -> BatchForecast:
+        """Forecast every slice ``values[starts[i]:ends[i]]`` ``horizon`` steps ahead."""
+        starts = np.asarray(starts, dtype=np.int64)
+        ends = np.asarray(ends, dtype=np.int64)
+        if summary is None:
+            summary = summarise(values, starts, ends, season)
+        point, sigma = self._point_and_sigma(values, starts, ends, horizon, season, summary)
+        ok = summary.length >= self.min_length(season)
+        point[~ok] = np.nan
+        n_levels = len(levels)
+        if sigma is None or n_levels == 0:
+            lower = np.full((n_levels,) + point.shape, np.nan)
+            upper = lower.copy()
+        else:
+            sigma[~ok] = np.nan
+            half = _z(levels)[:, None, None] * sigma[None, :, :]
+            lower, upper = point[None] - half, point[None] + half
+        message = (
+            f"{type(self).__name__} needs at least {self.min_length(season)} training "
+            f"observations"
+        )
+        return BatchForecast(point, lower, upper, ok, "" if ok.all() else message)
+
+    def _point_and_sigma(
+        self,
+        values: np.ndarray,
+        starts: np.ndarray,
+        ends: np.ndarray,
+        horizon: int,
+        season: int,
+        s: SliceSummary,
+    ) -> tuple[np.ndarray, np.ndarray | None]:
+        raise NotImplementedError
+
+    # ---- the per-series protocol (used by check_forecaster and by plugin-style callers)
+
+    def fit(self, y: np.ndarray, *, season: int, covariates: np.ndarray | None = None):
+        """Remember the training values (the methods have nothing else to estimate)."""
+        y = np.asarray(y, dtype=float)
+        if y.ndim != 1 or len(y) < self.min_length(season):
+            raise ValueError(
+                f"{type(self).__name__} needs at least {self.min_length(season)} observations, "
+                f"got {len(y)}"
+            )
+        self.y_ = y.copy()
+        self.season_ = int(season)
+        return self
+
+    def predict(
+        self,
+        horizon: int,
+        *,
+        covariates: np.ndarray | None = None,
+        levels: tuple[float, ...] = (),
+    ) -> Forecast:
+        """Forecast ``horizon`` steps from the fitted values."""
+        if not hasattr(self, "y_"):
+            raise RuntimeError(f"{type(self).__name__} is not fitted; call fit first")
+        b = self.forecast_many(
+            self.y_, np.array([0]), np.array([len(self.y_)]), horizon,
+            season=self.season_, levels=tuple(levels),
+        )
+        lower = {
+            lv: b.lower[i, 0] for i, lv in enumerate(levels) if np.isfinite(b.lower[i, 0]).all()
+        }
+        upper = {lv: b.upper[i, 0] for i, lv in enumerate(levels) if lv in lower}
+        return Forecast(b.point[0], lower, upper)
+
+    def __repr__(self) -> str:
+        params = ", ".join(f"{k}={v!r}" for k, v in vars(self).items() if not k.endswith("_"))
+        return f"{type(self).__name__}({params})"
+
+
+def _steps(horizon: int) -> np.ndarray:
+    return np.arange(1, horizon + 1, dtype=float)
+
+
+class Naive(_Baseline):
+    """Naive method: every step is the last observed value (FPP3 5.2), sigma_h = sigma sqrt(h)."""
+
+    def __init__(self) -> None:
+        pass
+
+    def _point_and_sigma(self, values, starts, ends, horizon, season, s):
+        point = np.repeat(s.last[:, None], horizon, axis=1)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            sigma = np.sqrt(s.diff_sq / (s.length - 1))
+        return point, sigma[:, None] * np.sqrt(_steps(horizon))[None, :]
+
+    def min_length(self, season: int) -> int:
+        return 1
+
+
+class SeasonalNaive(_Baseline):
+    """Seasonal naive method: the value at the same point of the last season (FPP3 5.2).
+
+    y_hat_{T+h} = y_{T+h-m(k+1)} with k = floor((h-1)/m); sigma_h = sigma sqrt(k+1).
+    With season 1 it equals the naive method.
+    """
+
+    def __init__(self) -> None:
+        pass
+
+    def min_length(self, season: int) -> int:
+        return max(int(season), 1)
+
+    def _point_and_sigma(self, values, starts, ends, horizon, season, s):
+        m = max(int(season), 1)
+        h0 = np.arange(horizon)
+        idx = ends[:, None] - m + (h0 % m)[None, :]
+        point = values[np.clip(idx, 0, len(values) - 1)].astype(float)
+        k = h0 // m
+        with np.errstate(invalid="ignore", divide="ignore"):
+            sigma = np.sqrt(s.seasonal_sq / (s.length - m))
+        return point, sigma[:, None] * np.sqrt(k + 1.0)[None, :]
+
+
+class Mean(_Baseline):
+    """Mean (average) method: the mean of the whole training window (FPP3 5.2).
+
+    sigma_h = sigma sqrt(1 + 1/T), sigma from the residuals about the mean (K = 1).
+    """
+
+    def __init__(self) -> None:
+        pass
+
+    def _point_and_sigma(self, values, starts, ends, horizon, season, s):
+        point = np.repeat(s.mean[:, None], horizon, axis=1)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            sigma = np.sqrt(s.mean_sq / (s.length - 1)) * np.sqrt(1.0 + 1.0 / s.length)
+        return point, np.repeat(sigma[:, None], horizon, axis=1)
+
+
+class Drift(_Baseline):
+    """Drift method: the line from the first to the last observation, extended (FPP3 5.2).
+
+    y_hat_{T+h} = y_T + h (y_T - y_1)/(T - 1); sigma_h = sigma sqrt(h (1 + h/(T-1))), sigma
+    from the residuals y_t - y_{t-1} - c (K = 1, M = 1).
+    """
+
+    def __init__(self) -> None:
+        pass
+
+    def min_length(self, season: int) -> int:
+        return 2
+
+    def _point_and_sigma(self, values, starts, ends, horizon, season, s):
+        h = _steps(horizon)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            slope = (s.last - s.first) / (s.length - 1)
+            point = s.last[:, None] + slope[:, None] * h[None, :]
+            sigma = np.sqrt(s.drift_sq / (s.length - 2))
+            t1 = (s.length - 1)[:, None]
+            sigma_h = sigma[:, None] * np.sqrt(h[None, :] * (1.0 + h[None, :] / t1))
+        return point, sigma_h
+
+
+class SeasonAverage(_Baseline):
+    """The mean of the last full season, for every step (no published interval formula)."""
+
+    def __init__(self) -> None:
+        pass
+
+    def min_length(self, season: int) -> int:
+        return max(int(season), 1)
+
+    def _point_and_sigma(self, values, starts, ends, horizon, season, s):
+        m = max(int(season), 1)
+        idx = ends[:, None] - m + np.arange(m)[None, :]
+        last_season = values[np.clip(idx, 0, len(values) - 1)]
+        return np.repeat(last_season.mean(axis=1)[:, None], horizon, axis=1), None
+
+
+class WindowAverage(_Baseline):
+    """The mean, median or mode of the last ``size`` values, for every step.
+
+    A moving-average forecast (no published interval formula). ``mode`` is the most frequent of
+    the ``size`` values, the smallest one on ties, and is meant for count data.
+    """
+
+    def __init__(self, size: int = 3, stat: str = "mean") -> None:
+        if isinstance(size, bool) or not isinstance(size, int) or size < 1:
+            raise ValueError(f"size: expected an integer >= 1, got {size!r}")
+        if stat not in ("mean", "median", "mode"):
+            raise ValueError(f"stat: expected one of mean, median, mode, got {stat!r}")
+        self.size = size
+        self.stat = stat
+
+    def min_length(self, season: int) -> int:
+        return self.size
+
+    def _point_and_sigma(self, values, starts, ends, horizon, season, s):
+        k = self.size
+        out = np.empty(len(starts))
+        for part in chunks(np.maximum(ends - k, starts), ends):
+            idx = ends[part, None] - k + np.arange(k)[None, :]
+            win = values[np.clip(idx, 0, len(values) - 1)]
+            if self.stat == "mean":
+                out[part] = win.mean(axis=1)
+            elif self.stat == "median":
+                out[part] = np.median(win, axis=1)
+            else:
+                srt = np.sort(win, axis=1)
+                counts = (srt[:, :, None] == srt[:, None, :]).sum(axis=2)
+                out[part] = srt[np.arange(len(srt)), counts.argmax(axis=1)]
+        return np.repeat(out[:, None], horizon, axis=1), None
+
+
+__all__ = [
+    "BatchForecast",
+    "Drift",
+    "Mean",
+    "Naive",
+    "SeasonAverage",
+    "SeasonalNaive",
+    "WindowAverage",
+    "padded",
+]

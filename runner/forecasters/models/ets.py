@@ -1,0 +1,149 @@
+"""``kind: ets``: exponential smoothing state-space models through statsmodels.
+
+Hyndman, R.J., Koehler, A.B., Ord, J.K., Snyder, R.D. (2008), *Forecasting with Exponential
+Smoothing: The State Space Approach*, Springer: the ETS(error, trend, seasonal) family,
+estimated by maximum likelihood (``statsmodels.tsa.exponential_smoothing.ets.ETSModel``).
+"""
+
+from __future__ import annotations
+
+from typing import Any
+
+import numpy as np
+import pandas as pd
+from statsmodels.tsa.exponential_smoothing.ets import ETSModel
+
+from runner.forecasters.contract import Forecast
+from runner.forecasters.models._common import (
+    boolean,
+    check_converged,
+    check_levels,
+    choice,
+    horizon_steps,
+    need_length,
+    quiet,
+    require_fitted,
+    season_length,
+    series,
+    with_bounds,
+)
+
+#: Seed of the simulated prediction intervals (models without an analytic interval), fixed so
+#: that the same fit always gives the same bounds.
+SIMULATION_SEED = 0
+SIMULATIONS = 1000
+
+
+class ETS:
+    """ETS(error, trend, seasonal) model, optionally with a damped trend (statsmodels).
+
+    Parameters
+    ----------
+    error:
+        ``add`` or ``mul``.
+    trend:
+        ``null`` (none), ``add`` or ``mul``.
+    damped:
+        ``true`` damps the trend (needs a trend).
+    seasonal:
+        ``null`` (none), ``add`` or ``mul``; the season length comes from the dataset.
+
+    Multiplicative components need strictly positive data. Prediction intervals are analytic
+    for the linear models (additive error, additive or no trend and seasonal) and otherwise
+    simulated from 1000 seeded sample paths, as statsmodels offers them.
+
+    >>> y = 10.0 + np.arange(30.0) + np.sin(np.arange(30.0))
+    >>> f = ETS(trend="add").fit(y, season=1).predict(2, levels=(80.0,))
+    >>> f.point.shape, bool(np.all(f.lower[80.0] < f.upper[80.0]))
+    ((2,), True)
+    """
+
+    version = "1"
+    uses_covariates = False
+
+    def __init__(
+        self,
+        error: Any = "add",
+        trend: Any = None,
+        damped: Any = False,
+        seasonal: Any = None,
+    ) -> None:
+        self.error = error
+        self.trend = trend
+        self.damped = damped
+        self.seasonal = seasonal
+        self._checked()
+
+    def _checked(self) -> None:
+        choice(self.error, "error", ("add", "mul"))
+        choice(self.trend, "trend", (None, "add", "mul"))
+        choice(self.seasonal, "seasonal", (None, "add", "mul"))
+        if boolean(self.damped, "damped") and self.trend is None:
+            raise ValueError("damped: true needs a trend (add or mul)")
+
+    def _minimum_length(self, season: int) -> int:
+        # More values than estimated parameters (smoothing weights, phi, initial states), and the
+        # two full seasons statsmodels' start values need.
+        n_params = 2 + (2 if self.trend else 0) + (1 if self.damped else 0)
+        if self.seasonal:
+            n_params += 1 + season
+        need = n_params + 1
+        return max(need, 2 * season) if self.seasonal else need
+
+    def fit(self, y: np.ndarray, *, season: int, covariates: np.ndarray | None = None) -> ETS:
+        """Estimate the model on ``y`` (covariates are not used by ETS)."""
+        self._checked()
+        y = series(y, "ets")
+        season = season_length(season, "ets")
+        if self.seasonal and season < 2:
+            raise ValueError(
+                f"ets: seasonal {self.seasonal!r} needs a season >= 2, but the series has "
+                f"season {season}"
+            )
+        multiplicative = [k for k in ("error", "trend", "seasonal") if getattr(self, k) == "mul"]
+        if multiplicative and not np.all(y > 0):
+            raise ValueError(
+                f"ets: {multiplicative[0]} 'mul' needs strictly positive values; the training "
+                "series has values <= 0"
+            )
+        need_length(y.shape[0], self._minimum_length(season), "ets", "this model")
+        # A Series with a RangeIndex, not an ndarray: statsmodels' get_prediction (intervals)
+        # fails on ndarray input (it reads `.index` of the predicted mean).
+        endog = pd.Series(y, copy=False)
+        with quiet():
+            res = ETSModel(
+                endog,
+                error=self.error,
+                trend=self.trend,
+                damped_trend=bool(self.damped),
+                seasonal=self.seasonal,
+                seasonal_periods=season if self.seasonal else None,
+            ).fit(disp=False)
+        check_converged(res, "ets")
+        self.result_ = res
+        self.nobs_ = int(y.shape[0])
+        return self
+
+    def predict(
+        self,
+        horizon: int,
+        *,
+        covariates: np.ndarray | None = None,
+        levels: tuple[float, ...] = (),
+    ) -> np.ndarray | Forecast:
+        """Forecast ``horizon`` steps, with intervals at ``levels`` (percent) when asked."""
+        res = require_fitted(self, "result_")
+        horizon = horizon_steps(horizon, "ets")
+        levels = check_levels(levels, "ets")
+        with quiet():
+            if not levels:
+                return np.asarray(res.forecast(horizon), dtype=float)
+            pred = res.get_prediction(
+                start=self.nobs_,
+                end=self.nobs_ + horizon - 1,
+                simulate_repetitions=SIMULATIONS,
+                rng=np.random.default_rng(SIMULATION_SEED),
+            )
+            point = np.asarray(pred.predicted_mean, dtype=float)
+            bounds = {lv: np.asarray(pred.pred_int(alpha=1.0 - lv / 100.0)) for lv in levels}
+        return with_bounds(point, bounds)

@@ -1,0 +1,170 @@
+"""Forecasting every task of a plan and scoring it: the computational core of a run."""
+
+from __future__ import annotations
+
+import sys
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from runner.config import ForecasterSpec
+from runner.execution.dispatch import EngineCounts, forecast_models
+from runner.execution.model_tasks import build_model_tasks
+from runner.execution.tasks import ModelTask
+from runner.forecasters.registry import build, is_vectorised
+from runner.forecasters.slices import SliceSummary, summarise
+from runner.scoring import metrics as M
+from runner.windows.plan import DatasetPlan, Plan
+
+
+@dataclass
+class ForecasterResult:
+    """Forecasts and scores of one forecaster on every task of one dataset (task order)."""
+
+    spec: ForecasterSpec
+    point: np.ndarray  # (n, H), NaN rows for failed tasks
+    lower: np.ndarray  # (levels, n, H)
+    upper: np.ndarray
+    reason: list[str | None]  # None where the task succeeded
+    message: list[str]
+    scores: dict[str, M.Scored] = field(default_factory=dict)
+    loss: np.ndarray | None = None  # (n, H) pointwise loss of the rank metric
+    info: list[dict] = field(default_factory=list)
+
+    @property
+    def failed(self) -> np.ndarray:
+        """Boolean mask of failed tasks."""
+        return np.array([r is not None for r in self.reason], dtype=bool)
+
+
+@dataclass
+class DatasetResult:
+    """Everything computed for one dataset."""
+
+    plan: DatasetPlan
+    actual: np.ndarray  # (n, H)
+    results: list[ForecasterResult]
+    summary: SliceSummary
+    warnings: list[str] = field(default_factory=list)
+
+
+@dataclass
+class Evaluation:
+    """The outcome of forecasting and scoring a whole plan."""
+
+    plan: Plan
+    datasets: list[DatasetResult]
+    counts: EngineCounts
+    stopped: bool = False
+
+
+def _baseline_result(
+    spec: ForecasterSpec, dp: DatasetPlan, summary: SliceSummary, horizon: int,
+    levels: tuple[float, ...],
+) -> ForecasterResult:
+    model = build(spec)
+    # Forecast through the gap (if any) and keep the last ``horizon`` steps: the scored block.
+    gap = int(dp.test_starts[0] - dp.ends[0]) if dp.n_tasks else 0
+    b = model.forecast_many(
+        dp.panel.values, dp.starts, dp.ends, horizon + gap,
+        season=dp.panel.season, levels=levels, summary=summary,
+    )
+    b.point, b.lower, b.upper = b.point[:, gap:], b.lower[:, :, gap:], b.upper[:, :, gap:]
+    reason = [None if ok else "too-short" for ok in b.ok]
+    message = ["" if ok else b.message for ok in b.ok]
+    return ForecasterResult(spec, b.point, b.lower, b.upper, reason, message)
+
+
+def evaluate(
+    plan: Plan, *, use_cache: bool = True, jobs: int | None = None, quiet: bool = False
+) -> Evaluation:
+    """Forecast every (dataset, series, forecaster, fold) task of ``plan`` and score it."""
+    cfg = plan.config
+    horizon, levels = cfg.horizon, tuple(cfg.intervals)
+    steps = np.arange(horizon)
+    summaries = [
+        summarise(dp.panel.values, dp.starts, dp.ends, dp.panel.season) for dp in plan.datasets
+    ]
+    per_dataset: list[dict[int, ForecasterResult]] = [{} for _ in plan.datasets]
+
+    # Baselines: vectorised over all tasks of a dataset at once, in this process.
+    for d, dp in enumerate(plan.datasets):
+        for f in dp.forecasters:
+            spec = plan.forecasters[f]
+            if is_vectorised(spec):
+                per_dataset[d][f] = _baseline_result(spec, dp, summaries[d], horizon, levels)
+    model_tasks, shared = build_model_tasks(plan)
+
+    # Per-series models: through the engine (cache, workers, fault isolation).
+    counts = EngineCounts()
+    stopped = False
+    if model_tasks:
+        outcomes, counts = forecast_models(
+            model_tasks, shared, cfg.execution, use_cache=use_cache, jobs=jobs, quiet=quiet,
+            cache_path=cfg.execution.cache_folder(),
+        )
+        by_index = {o.index: o for o in outcomes}
+        stopped = len(by_index) < len(model_tasks) or any(
+            o.reason == "not-run" for o in outcomes
+        )
+        n_levels = len(levels)
+        grouped: dict[tuple[int, int], list[ModelTask]] = {}
+        for task in model_tasks:
+            grouped.setdefault((task.dataset, task.forecaster), []).append(task)
+        for (d, f), tasks in grouped.items():
+            n = len(tasks)
+            point = np.full((n, horizon), np.nan)
+            lower = np.full((n_levels, n, horizon), np.nan)
+            upper = np.full((n_levels, n, horizon), np.nan)
+            reason: list[str | None] = []
+            message: list[str] = []
+            info: list[dict] = []
+            for t, task in enumerate(tasks):
+                o = by_index.get(task.index)
+                if o is None:
+                    reason.append("not-run")
+                    message.append("the run stopped at an earlier failure (on_error: stop)")
+                    info.append({})
+                    continue
+                reason.append(o.reason)
+                message.append(o.message)
+                info.append(o.info)
+                if o.ok:
+                    point[t] = o.point
+                    if n_levels:
+                        lower[:, t] = o.lower
+                        upper[:, t] = o.upper
+            per_dataset[d][f] = ForecasterResult(
+                plan.forecasters[f], point, lower, upper, reason, message, info=info
+            )
+
+    # Scores: computed from the forecasts at every run, so a new metric never refits.
+    cols = M.columns(cfg.metrics, levels)
+    results = []
+    for d, dp in enumerate(plan.datasets):
+        s = summaries[d]
+        actual = dp.panel.values[dp.test_starts[:, None] + steps[None, :]]
+        mase_scale = M.scale_mase(s.seasonal_abs, s.length, dp.panel.season)
+        rmsse_scale = M.scale_rmsse(s.diff_sq, s.length)
+        warnings: list[str] = []
+        ordered = [per_dataset[d][f] for f in dp.forecasters]
+        for r in ordered:
+            r.scores = M.score_tasks(
+                cols, actual, r.point, r.lower, r.upper, levels, mase_scale, rmsse_scale
+            )
+            r.loss = M.pointwise_loss(cfg.rank_by, actual, r.point, mase_scale, rmsse_scale)
+            for col, sc in r.scores.items():
+                if sc.undefined.any():
+                    bad = np.unique(dp.series[sc.undefined])
+                    names = ", ".join(dp.panel.keys[i] for i in bad[:3])
+                    more = f" and {len(bad) - 3} more" if len(bad) > 3 else ""
+                    warnings.append(
+                        f"dataset {dp.panel.name}: {col} of {r.spec.name} is undefined "
+                        f"(zero or undefined denominator) for series {names}{more}; "
+                        "left out of its mean"
+                    )
+        if not quiet:
+            for w in warnings:
+                print(f"castgrid: warning: {w}", file=sys.stderr)
+        results.append(DatasetResult(dp, actual, ordered, s, warnings))
+    return Evaluation(plan, results, counts, stopped)

@@ -1,0 +1,213 @@
+"""The leaderboard: one row per dataset and forecaster, ranked on the config's metric.
+
+Per forecaster and metric, the task scores are averaged within each fold (over the series),
+and the leaderboard gives the mean and the sample standard deviation of those fold means, so
+the spread says how much the score moves from one forecast origin to the next. Undefined task
+scores (NaN) are left out of a fold's mean and reported as warnings during the run.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+
+from runner.scoring import metrics as M
+from runner.scoring.evaluate import DatasetResult, Evaluation, ForecasterResult
+
+#: Float format of every number written to leaderboard.csv (fixed, so reruns are byte-equal).
+FLOAT_FORMAT = ".6g"
+
+
+def _fold_mean_sd(values: np.ndarray, groups: np.ndarray) -> tuple[float, float]:
+    ok = ~np.isnan(values)
+    if not ok.any():
+        return float("nan"), float("nan")
+    g, inv = np.unique(groups[ok], return_inverse=True)
+    sums = np.bincount(inv, weights=values[ok], minlength=len(g))
+    counts = np.bincount(inv, minlength=len(g))
+    fold_means = sums / counts
+    sd = float(np.std(fold_means, ddof=1)) if len(fold_means) > 1 else float("nan")
+    return float(fold_means.mean()), sd
+
+
+def _rank_order(values: np.ndarray, names: list[str], column: str) -> np.ndarray:
+    """1-based ranks: best first by the metric's direction, NaN last, ties by name."""
+    mi = M.info(column)
+    key = values.copy()
+    if mi.better == "higher":
+        key = -key
+    elif mi.better == "abs":
+        key = np.abs(key)
+    elif mi.better == "target":
+        key = np.abs(key - mi.target)
+    key = np.where(np.isnan(key), np.inf, key)
+    order = sorted(range(len(names)), key=lambda i: (key[i], names[i]))
+    ranks = np.empty(len(names), dtype=np.int64)
+    ranks[order] = np.arange(1, len(names) + 1)
+    return ranks
+
+
+def _versus_reference(
+    r: ForecasterResult, ref: ForecasterResult, dr: DatasetResult, rank_by: str, horizon: int,
+    step: int,
+) -> dict[str, object]:
+    from runner.scoring.significance import compare_with_reference
+
+    both = ~r.failed & ~ref.failed
+    score = r.scores[rank_by].per_task
+    ref_score = ref.scores[rank_by].per_task
+    both &= ~np.isnan(score) & ~np.isnan(ref_score)
+    if not both.any():
+        return {"win_share": np.nan, "dm_better": np.nan, "dm_worse": np.nan,
+                "wilcoxon_p": np.nan, "significant": False}
+    c = compare_with_reference(
+        score[both], ref_score[both], r.loss[both], ref.loss[both],
+        dr.plan.series[both], dr.plan.fold[both], horizon, step=step,
+    )
+    return {"win_share": c.win_share, "dm_better": c.dm_better, "dm_worse": c.dm_worse,
+            "wilcoxon_p": c.wilcoxon_p, "significant": bool(c.significant)}
+
+
+def build_leaderboard(ev: Evaluation) -> pd.DataFrame:
+    """The leaderboard as a DataFrame in its fixed row and column order."""
+    cfg = ev.plan.config
+    cols = M.columns(cfg.metrics, tuple(cfg.intervals))
+    rank_by = cfg.rank_by
+    rows = []
+    for dr in ev.datasets:
+        dp = dr.plan
+        ref = next(r for r in dr.results if r.spec.name == dp.reference)
+        block = []
+        for r in dr.results:
+            ok = ~r.failed
+            row: dict[str, object] = {
+                "dataset": dp.panel.name,
+                "forecaster": r.spec.name,
+                "kind": r.spec.kind,
+                "role": r.spec.role,
+                "series": int(len(np.unique(dp.series[ok]))),
+                "folds": int(len(np.unique(dp.fold_group[ok]))),
+                "tasks": int(ok.sum()),
+                "failed": int(r.failed.sum()),
+            }
+            for col in cols:
+                mean, sd = _fold_mean_sd(r.scores[col].per_task, dp.fold_group)
+                row[f"{col}_mean"], row[f"{col}_sd"] = mean, sd
+            block.append(row)
+        ref_row = next(b for b in block if b["forecaster"] == dp.reference)
+        ref_value = ref_row[f"{rank_by}_mean"]
+        better = M.info(rank_by).better
+        for row, r in zip(block, dr.results):
+            value = row[f"{rank_by}_mean"]
+            with np.errstate(divide="ignore", invalid="ignore"):
+                rel = (abs(value) / abs(ref_value)) if better == "abs" else value / ref_value
+            row[f"{rank_by}_rel"] = float(rel) if np.isfinite(rel) else np.nan
+            if r is ref:
+                row.update(win_share=np.nan, dm_better=np.nan, dm_worse=np.nan,
+                           wilcoxon_p=np.nan)
+                row["beats_reference"] = False
+                continue
+            vs = _versus_reference(
+                r, ref, dr, rank_by, cfg.horizon, cfg.windows.step or cfg.horizon
+            )
+            significant = vs.pop("significant")
+            row.update(vs)
+            row["beats_reference"] = bool(
+                np.isfinite(rel) and rel < 1.0 and significant and row["failed"] == 0
+            )
+        ranks = _rank_order(
+            np.array([b[f"{rank_by}_mean"] for b in block], dtype=float),
+            [str(b["forecaster"]) for b in block],
+            rank_by,
+        )
+        for b, rank in zip(block, ranks):
+            b["rank"] = int(rank)
+        rows.extend(sorted(block, key=lambda b: b["rank"]))
+    head = ["dataset", "rank", "forecaster", "kind", "role", "series", "folds", "tasks", "failed"]
+    metric_cols = [f"{c}_{s}" for c in cols for s in ("mean", "sd")]
+    tail = [f"{rank_by}_rel", "win_share", "dm_better", "dm_worse", "wilcoxon_p",
+            "beats_reference"]
+    return pd.DataFrame(rows, columns=head + metric_cols + tail)
+
+
+def _fmt(v: object) -> str:
+    if isinstance(v, (bool, np.bool_)):
+        return "true" if v else "false"
+    if isinstance(v, (int, np.integer)):
+        return str(int(v))
+    if isinstance(v, (float, np.floating)):
+        if np.isnan(v):
+            return ""
+        if float(v).is_integer() and abs(v) < 1e15:
+            return str(int(v))
+        return format(float(v), FLOAT_FORMAT)
+    return str(v)
+
+
+def to_csv_text(board: pd.DataFrame) -> str:
+    """The leaderboard as CSV text with fixed formatting (the byte-identical guarantee)."""
+    lines = [",".join(board.columns)]
+    for row in board.itertuples(index=False):
+        cells = []
+        for v in row:
+            s = _fmt(v)
+            if any(ch in s for ch in ',"\n'):
+                s = '"' + s.replace('"', '""') + '"'
+            cells.append(s)
+        lines.append(",".join(cells))
+    return "\n".join(lines) + "\n"
+
+
+def to_markdown(board: pd.DataFrame, rank_by: str, metrics: list[str]) -> str:
+    """The leaderboard as Markdown tables (one per dataset) for reading and review comments."""
+    metric_cols = [c[: -len("_mean")] for c in board.columns if c.endswith("_mean")]
+    out = []
+    for dataset, block in board.groupby("dataset", sort=False):
+        out.append(f"## {dataset}\n")
+        head = ["rank", "forecaster", "role", "series", "folds", "failed"]
+        marks = {c: (c + " †" if c.split("_")[0] in M.UNRELIABLE else c) for c in metric_cols}
+        header = head + [marks[c] for c in metric_cols] + [f"{rank_by} vs reference",
+                                                             "beats reference"]
+        out.append("| " + " | ".join(header) + " |")
+        out.append("|" + "|".join("---" for _ in header) + "|")
+        for _, r in block.iterrows():
+            cells = [_fmt(r[h]) for h in head]
+            for c in metric_cols:
+                mean, sd = _fmt(r[f"{c}_mean"]), _fmt(r[f"{c}_sd"])
+                cells.append(f"{mean} ± {sd}" if sd else mean)
+            cells.append(_fmt(r[f"{rank_by}_rel"]))
+            cells.append("yes" if r["beats_reference"] else "")
+            out.append("| " + " | ".join(cells) + " |")
+        out.append("")
+    flagged = [m for m in metrics if m in M.UNRELIABLE]
+    notes = ["Scores are the mean ± standard deviation over folds of each fold's mean."]
+    notes += [f"† {m}: unreliable for comparing forecasts ({M.UNRELIABLE[m]})." for m in flagged]
+    failed = board[board["failed"] > 0]
+    for _, r in failed.iterrows():
+        notes.append(
+            f"{r['forecaster']} on {r['dataset']}: {r['failed']} failed task(s); scored on "
+            f"the {r['tasks']} that completed (see failures.csv)."
+        )
+    out.extend(notes)
+    return "\n".join(out) + "\n"
+
+
+def to_terminal(board: pd.DataFrame, rank_by: str) -> str:
+    """A compact fixed-width table for the terminal."""
+    lines = []
+    for dataset, block in board.groupby("dataset", sort=False):
+        names = [str(n) for n in block["forecaster"]]
+        width = max(10, *(len(n) for n in names))
+        lines.append(f"{dataset}")
+        lines.append(
+            f"  {'rank':>4}  {'forecaster':<{width}}  {'role':<9}  {rank_by:>10}  "
+            f"{'± sd':>9}  {'vs ref':>7}  {'beats':>5}  {'failed':>6}"
+        )
+        for _, r in block.iterrows():
+            lines.append(
+                f"  {r['rank']:>4}  {r['forecaster']:<{width}}  {r['role']:<9}  "
+                f"{_fmt(r[f'{rank_by}_mean']):>10}  {_fmt(r[f'{rank_by}_sd']):>9}  "
+                f"{_fmt(r[f'{rank_by}_rel']):>7}  {'yes' if r['beats_reference'] else '':>5}  "
+                f"{r['failed']:>6}"
+            )
+    return "\n".join(lines)
