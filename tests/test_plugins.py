@@ -98,7 +98,7 @@ def test_a_valid_config_passes(plugin_module):
             {"name": "a", "kind": "arima", "params": {"order": [0, 1, 1]}},
             {"name": "e", "kind": "ets", "grid": {"trend": ["add", None], "damped": [False]}},
             {"name": "t", "kind": "theta", "params": {"deseasonalize": False}},
-            {"name": "aa", "kind": "auto_arima", "params": {"max_p": 2}},
+            {"name": "aa", "kind": "arima_search", "params": {"p_up_to": 2}},
             {"name": "p", "kind": "plugin", "entry": f"{mod}:LastValue", "params": {"shift": 1}},
             {"name": "f", "kind": "plugin", "entry": f"{mod}:make_last_value"},
         ]
@@ -198,10 +198,10 @@ def test_bad_plugin_params_name_the_field(plugin_module):
 
 
 def test_bad_baseline_params_name_the_baseline():
-    cfg = config([], baselines=["naive", {"window_average": {"size": 0}}])
+    cfg = config([], baselines=["naive", {"moving_average": {"size": 0}}])
     with pytest.raises(ConfigError) as exc:
         validate_forecasters(cfg, "exp.yaml")
-    assert str(exc.value).startswith("exp.yaml: baselines[1].window_average.size: ")
+    assert str(exc.value).startswith("exp.yaml: baselines[1].moving_average.size: ")
 
 
 def test_protocol_problem_reads_signatures_without_calling():

@@ -64,8 +64,8 @@ def make_results(out: Path, seed: int = 0, runs: int = 3) -> Path:
                         "dataset": "shops", "series": series, "forecaster": name, "fold": fold,
                         "step": k + 1, "time": times[k].strftime("%Y-%m-%d"),
                         "actual": y[k], "forecast": f[k],
-                        "lower_80": f[k] - 1.28 * noise * scale,
-                        "upper_80": f[k] + 1.28 * noise * scale,
+                        "interval_80_low": f[k] - 1.28 * noise * scale,
+                        "interval_80_high": f[k] + 1.28 * noise * scale,
                     })
                 score_rows.append({
                     "dataset": "shops", "series": series, "forecaster": name, "fold": fold,

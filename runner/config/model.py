@@ -23,7 +23,7 @@ from pydantic import (
 
 BASELINE_KINDS = (
     "naive",
-    "window_average",
+    "moving_average",
     "seasonal_naive",
     "season_average",
     "drift",
@@ -31,10 +31,20 @@ BASELINE_KINDS = (
 )
 #: Baselines that only make sense when the season length is above 1.
 SEASONAL_BASELINES = ("seasonal_naive", "season_average")
-MODEL_KINDS = ("arima", "ets", "theta", "auto_arima", "plugin")
+MODEL_KINDS = ("arima", "ets", "theta", "arima_search", "plugin")
 POINT_METRICS = ("me", "mae", "mse", "rmse", "mape", "smape", "mase", "rmsse", "r2")
 INTERVAL_METRICS = ("coverage", "winkler", "pinball")
 DEFAULT_METRICS = ["mae", "rmse", "mase", "rmsse", "smape"]
+#: Names an earlier castgrid release accepted, and the names that replaced them. A config that
+#: still uses one gets a one-line error naming the new name, never a silent fallback.
+RENAMED_KINDS = {"window_average": "moving_average", "auto_arima": "arima_search"}
+RENAMED_PARAMS = {
+    "arima_search": {
+        "max_p": "p_up_to", "max_q": "q_up_to", "max_P": "P_up_to", "max_Q": "Q_up_to",
+        "max_d": "d_up_to", "max_D": "D_up_to", "max_order": "terms_up_to",
+        "max_models": "fits_up_to",
+    },
+}
 _SHARE = re.compile(r"^\s*(\d+(?:\.\d+)?)\s*%\s*$")
 _NAME = re.compile(r"^[A-Za-z0-9][A-Za-z0-9._-]*$")
 
@@ -171,7 +181,7 @@ class ModelConfig(_Strict):
     """A candidate forecaster; ``grid`` expands it into one candidate per combination."""
 
     name: str
-    kind: Literal["arima", "ets", "theta", "auto_arima", "plugin"]
+    kind: Literal["arima", "ets", "theta", "arima_search", "plugin"]
     params: dict[str, Any] = Field(default_factory=dict)
     grid: dict[str, list[Any]] = Field(default_factory=dict)
     entry: str | None = None
@@ -180,6 +190,13 @@ class ModelConfig(_Strict):
     @classmethod
     def _name_is_simple(cls, v: str) -> str:
         return _simple_name(v)
+
+    @field_validator("kind", mode="before")
+    @classmethod
+    def _kind_not_renamed(cls, v: Any) -> Any:
+        if isinstance(v, str) and v in RENAMED_KINDS:
+            raise ValueError(f"kind {v!r} is now called {RENAMED_KINDS[v]!r}")
+        return v
 
     @field_validator("grid")
     @classmethod
@@ -197,6 +214,11 @@ class ModelConfig(_Strict):
             raise ValueError(f"entry is only for kind plugin, not {self.kind}")
         if self.entry and not re.match(r"^[\w.]+:[\w.]+$", self.entry):
             raise ValueError(f'entry: expected "module:attribute", got {self.entry!r}')
+        for key in list(self.params) + list(self.grid):
+            new = RENAMED_PARAMS.get(self.kind, {}).get(key)
+            if new is not None:
+                where = "params" if key in self.params else "grid"
+                raise ValueError(f"{where}.{key} of {self.kind} is now called {new!r}")
         overlap = sorted(set(self.params) & set(self.grid))
         if overlap:
             raise ValueError(f"{overlap[0]!r} is in both params and grid; keep one")
@@ -252,6 +274,8 @@ class Config(_Strict):
                     raise ValueError(f"{kind}: expected a mapping of parameters, got {params!r}")
             else:
                 raise ValueError(f"expected a baseline name or {{name: {{params}}}}, got {item!r}")
+            if kind in RENAMED_KINDS:
+                raise ValueError(f"baseline {kind!r} is now called {RENAMED_KINDS[kind]!r}")
             if kind not in BASELINE_KINDS:
                 raise ValueError(
                     f"unknown baseline {kind!r}; expected one of {', '.join(BASELINE_KINDS)}"

@@ -20,7 +20,7 @@ cannot produce (the first one for naive and drift, the first m for seasonal naiv
 row's ``T - 1`` follows from the variance of the drift estimate, sigma^2 / (T - 1).
 
 Two more benchmarks practitioners use have no published interval formula and give no
-intervals: ``window_average`` (mean, median or mode of the last ``size`` values, a moving
+intervals: ``moving_average`` (mean, median or mode of the last ``size`` values, a moving
 average forecast) and ``season_average`` (the mean of the last full season for every step).
 
 The built-ins load through :mod:`runner.forecasters.registry` like any plugin, and also honour the
@@ -252,7 +252,7 @@ class SeasonAverage(_Baseline):
         return np.repeat(last_season.mean(axis=1)[:, None], horizon, axis=1), None
 
 
-class WindowAverage(_Baseline):
+class MovingAverage(_Baseline):
     """The mean, median or mode of the last ``size`` values, for every step.
 
     A moving-average forecast (no published interval formula). ``mode`` is the most frequent of
@@ -294,6 +294,6 @@ __all__ = [
     "Naive",
     "SeasonAverage",
     "SeasonalNaive",
-    "WindowAverage",
+    "MovingAverage",
     "padded",
 ]

@@ -17,7 +17,7 @@ from runner.errors import PluginError
 
 BUILTIN: dict[str, str] = {
     "naive": "runner.forecasters.benchmarks:Naive",
-    "window_average": "runner.forecasters.benchmarks:WindowAverage",
+    "moving_average": "runner.forecasters.benchmarks:MovingAverage",
     "seasonal_naive": "runner.forecasters.benchmarks:SeasonalNaive",
     "season_average": "runner.forecasters.benchmarks:SeasonAverage",
     "drift": "runner.forecasters.benchmarks:Drift",
@@ -25,7 +25,7 @@ BUILTIN: dict[str, str] = {
     "arima": "runner.forecasters.models.arima:Arima",
     "ets": "runner.forecasters.models.ets:ETS",
     "theta": "runner.forecasters.models.theta:Theta",
-    "auto_arima": "runner.forecasters.models.auto_arima:AutoArima",
+    "arima_search": "runner.forecasters.models.arima_search:ArimaSearch",
 }
 
 

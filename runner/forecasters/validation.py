@@ -62,7 +62,7 @@ def _locations(cfg: Config) -> list[tuple[ForecasterSpec, str, dict[str, str]]]:
     out: list[tuple[ForecasterSpec, str, dict[str, str]]] = []
     for i, spec in enumerate(baseline_specs(cfg)):
         loc = "baselines" if spec.default else f"baselines[{i}]"
-        # YAML spells a baseline's params as `- window_average: {size: 4}`.
+        # YAML spells a baseline's params as `- moving_average: {size: 4}`.
         out.append((spec, loc, {k: spec.kind for k in spec.params}))
     # candidate_specs expands each model entry in config order into prod(len(grid values))
     # candidates; walk the same order to map every candidate back to its entry.

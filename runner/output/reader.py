@@ -13,6 +13,7 @@ from __future__ import annotations
 
 import io
 import json
+import re
 import subprocess
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
@@ -34,6 +35,16 @@ FAILURES = "failures.csv"
 LEADERBOARD_COLUMNS = ("dataset", "rank", "forecaster", "kind", "role")
 #: Keys every manifest.json has that castgrid's comparisons rely on.
 MANIFEST_KEYS = ("experiment", "config_hash", "data", "rank_by", "metrics")
+
+
+def interval_columns(level: float | str) -> tuple[str, str]:
+    """The forecasts.parquet columns of the ``level``% central interval: (low bound, high bound)."""
+    text = f"{float(level):g}"
+    return f"interval_{text}_low", f"interval_{text}_high"
+
+
+#: Matches a low-bound column of :func:`interval_columns`; group 1 is the level.
+INTERVAL_LOW = re.compile(r"^interval_(\d+(?:\.\d+)?)_low$")
 
 
 class ResultsFolder:

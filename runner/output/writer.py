@@ -20,6 +20,7 @@ import pandas as pd
 from runner import __version__
 from runner.config import canonical_json, config_hash
 from runner.forecasters.registry import identity
+from runner.output.reader import interval_columns
 from runner.scoring import metrics as M
 from runner.scoring.evaluate import Evaluation
 from runner.scoring.leaderboard import to_csv_text, to_markdown
@@ -141,9 +142,10 @@ def _forecasts_table(ev: Evaluation):
     time_offset = 0
     cols: dict[str, list[np.ndarray]] = {k: [] for k in ("d", "s", "f", "fold", "step", "t")}
     values: dict[str, list[np.ndarray]] = {"actual": [], "forecast": []}
-    for lv in levels:
-        values[f"lower_{lv:g}"] = []
-        values[f"upper_{lv:g}"] = []
+    bounds = [interval_columns(lv) for lv in levels]
+    for lo, hi in bounds:
+        values[lo] = []
+        values[hi] = []
     steps = np.arange(h)
     for d, dr in enumerate(ev.datasets):
         dp, panel = dr.plan, dr.plan.panel
@@ -162,9 +164,9 @@ def _forecasts_table(ev: Evaluation):
             cols["t"].append(t_index)
             values["actual"].append(dr.actual.ravel())
             values["forecast"].append(r.point.ravel())
-            for i, lv in enumerate(levels):
-                values[f"lower_{lv:g}"].append(r.lower[i].ravel())
-                values[f"upper_{lv:g}"].append(r.upper[i].ravel())
+            for i, (lo, hi) in enumerate(bounds):
+                values[lo].append(r.lower[i].ravel())
+                values[hi].append(r.upper[i].ravel())
     cat = {k: np.concatenate(v) for k, v in cols.items()}
     all_times = np.concatenate(times).astype(str).tolist()
     data = {

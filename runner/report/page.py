@@ -33,8 +33,10 @@ from runner.output.reader import (
     FORECASTS,
     HISTORY,
     HORIZON,
+    INTERVAL_LOW,
     SCORES,
     ResultsFolder,
+    interval_columns,
     read_leaderboard,
     read_manifest,
     read_table,
@@ -279,8 +281,7 @@ def plot_forecasts(ctx: _Context, forecasts: pd.DataFrame, scores: pd.DataFrame 
     labels = ["best series", "worst series"]
     fig = _new_figure(FIG_WIDTH, 2.9 * len(picks))
     axes = fig.subplots(len(picks), 1, squeeze=False)[:, 0]
-    levels = sorted({c[len("lower_"):] for c in part.columns if c.startswith("lower_")},
-                    key=float)
+    levels = sorted({m.group(1) for c in part.columns if (m := INTERVAL_LOW.match(c))}, key=float)
     for ax, series, label in zip(axes, picks, labels):
         rows = part[part["series"].astype(str) == series].copy()
         rows["_t"] = _time_axis(rows["time"])
@@ -292,7 +293,7 @@ def plot_forecasts(ctx: _Context, forecasts: pd.DataFrame, scores: pd.DataFrame 
         for i, (_, block) in enumerate(mine.groupby("fold")):
             block = block.sort_values("_t")
             if levels:
-                lo, hi = f"lower_{levels[0]}", f"upper_{levels[0]}"
+                lo, hi = interval_columns(levels[0])
                 if block[lo].notna().any():
                     ax.fill_between(block["_t"], block[lo], block[hi], color=color, alpha=0.15,
                                     linewidth=0, label=f"{levels[0]}% interval" if i == 0 else None)

@@ -95,7 +95,7 @@ def predict_fitted(
     model: Any, name: str, horizon: int, covariates: np.ndarray | None,
     levels: tuple[float, ...],
 ) -> np.ndarray | Forecast:
-    """``predict`` of a fitted statsmodels ARIMA kept in ``model.result_`` (arima, auto_arima)."""
+    """``predict`` of a fitted statsmodels ARIMA kept in ``model.result_`` (arima, arima_search)."""
     res = require_fitted(model, "result_")
     horizon = horizon_steps(horizon, name)
     levels = check_levels(levels, name)

@@ -1,4 +1,4 @@
-"""``kind: auto_arima``: ARIMA orders chosen per training window by a bounded stepwise search.
+"""``kind: arima_search``: ARIMA orders chosen per training window by a stepwise search.
 
 The procedure of Hyndman, R.J., Khandakar, Y. (2008), "Automatic time series forecasting: the
 forecast package for R", *Journal of Statistical Software* 27(3), built here on statsmodels:
@@ -13,7 +13,7 @@ forecast package for R", *Journal of Statistical Software* 27(3), built here on 
    1992, "Testing the null hypothesis of stationarity against the alternative of a unit root",
    J. Econometrics 54; with their short truncation lag ``int(4 (n/100)^(1/4))``) in sequence on
    the (seasonally differenced) series: while the test rejects at ``alpha`` (5%), difference
-   once more, up to ``max_d``. statsmodels' p-values are interpolated in the KPSS table and
+   once more, up to ``d_up_to``. statsmodels' p-values are interpolated in the KPSS table and
    clipped to [0.01, 0.1].
 3. Stepwise search over (p, q, P, Q, constant) with d and D fixed, by AICc (the paper's step
    text says AIC; AICc is what the brief and its later practice use): fit the four starting
@@ -21,8 +21,8 @@ forecast package for R", *Journal of Statistical Software* 27(3), built here on 
    when m > 1), with a constant when d + D <= 1; keep the best; then repeatedly try its
    neighbours -- one of p, q, P, Q changed by +-1; p and q both by +-1; P and Q both by +-1;
    the constant toggled -- and move to the first one with lower AICc, until none is lower.
-   Orders are bounded by ``max_p``, ``max_q``, ``max_P``, ``max_Q`` and ``p + q + P + Q <=
-   max_order``, and at most ``max_models`` models are fitted.
+   Orders are bounded by ``p_up_to``, ``q_up_to``, ``P_up_to``, ``Q_up_to`` and ``p + q + P + Q <=
+   terms_up_to``, and at most ``fits_up_to`` models are fitted.
 
 A candidate is discarded when its optimiser does not converge, its AICc is not finite, or an
 AR or MA root lies within 1.01 of the unit circle (the paper rejects models close to
@@ -74,17 +74,17 @@ def seasonal_strength(x: np.ndarray, m: int) -> float:
     return max(0.0, 1.0 - float(np.var(rem)) / denom)
 
 
-def choose_seasonal_d(x: np.ndarray, m: int, max_D: int) -> int:
+def choose_seasonal_d(x: np.ndarray, m: int, D_up_to: int) -> int:
     """D = 1 when the seasonal strength exceeds the threshold (needs two full seasons + 1)."""
-    if m < 2 or max_D < 1 or x.shape[0] < 2 * m + 1:
+    if m < 2 or D_up_to < 1 or x.shape[0] < 2 * m + 1:
         return 0
     return 1 if seasonal_strength(x, m) > SEASONAL_STRENGTH_THRESHOLD else 0
 
 
-def choose_d(x: np.ndarray, max_d: int, alpha: float) -> int:
+def choose_d(x: np.ndarray, d_up_to: int, alpha: float) -> int:
     """Difference while the KPSS test (level stationarity, short lag) rejects at ``alpha``."""
     d = 0
-    while d < max_d and x.shape[0] >= MIN_LENGTH and np.ptp(x) > 0:
+    while d < d_up_to and x.shape[0] >= MIN_LENGTH and np.ptp(x) > 0:
         lags = int(4 * (x.shape[0] / 100.0) ** 0.25)
         with quiet():
             p_value = kpss(x, regression="c", nlags=lags)[1]
@@ -103,20 +103,20 @@ def _roots_ok(res: Any) -> bool:
     return True
 
 
-class AutoArima:
+class ArimaSearch:
     """ARIMA with orders chosen per training window (Hyndman & Khandakar 2008, stepwise AICc).
 
     Parameters
     ----------
-    max_p, max_q:
+    p_up_to, q_up_to:
         Largest non-seasonal AR and MA orders searched.
-    max_P, max_Q:
+    P_up_to, Q_up_to:
         Largest seasonal AR and MA orders searched (used only when the season is above 1).
-    max_d, max_D:
-        Largest differencing orders the tests may choose (``max_D`` at most 1).
-    max_order:
+    d_up_to, D_up_to:
+        Largest differencing orders the tests may choose (``D_up_to`` at most 1).
+    terms_up_to:
         Bound on ``p + q + P + Q``.
-    max_models:
+    fits_up_to:
         Most models fitted per training window (bounds the run time).
     seasonal:
         ``false`` ignores the dataset's season (a non-seasonal search).
@@ -132,35 +132,35 @@ class AutoArima:
 
     def __init__(
         self,
-        max_p: Any = 3,
-        max_q: Any = 3,
-        max_P: Any = 1,
-        max_Q: Any = 1,
-        max_d: Any = 2,
-        max_D: Any = 1,
-        max_order: Any = 5,
-        max_models: Any = 30,
+        p_up_to: Any = 3,
+        q_up_to: Any = 3,
+        P_up_to: Any = 1,
+        Q_up_to: Any = 1,
+        d_up_to: Any = 2,
+        D_up_to: Any = 1,
+        terms_up_to: Any = 5,
+        fits_up_to: Any = 30,
         seasonal: Any = True,
         alpha: Any = 0.05,
     ) -> None:
-        self.max_p = max_p
-        self.max_q = max_q
-        self.max_P = max_P
-        self.max_Q = max_Q
-        self.max_d = max_d
-        self.max_D = max_D
-        self.max_order = max_order
-        self.max_models = max_models
+        self.p_up_to = p_up_to
+        self.q_up_to = q_up_to
+        self.P_up_to = P_up_to
+        self.Q_up_to = Q_up_to
+        self.d_up_to = d_up_to
+        self.D_up_to = D_up_to
+        self.terms_up_to = terms_up_to
+        self.fits_up_to = fits_up_to
         self.seasonal = seasonal
         self.alpha = alpha
         self._checked()
 
     def _checked(self) -> None:
-        for name in ("max_p", "max_q", "max_P", "max_Q", "max_d", "max_order"):
+        for name in ("p_up_to", "q_up_to", "P_up_to", "Q_up_to", "d_up_to", "terms_up_to"):
             positive_int(getattr(self, name), name)
-        if positive_int(self.max_D, "max_D") > 1:
-            raise ValueError(f"max_D: expected 0 or 1, got {self.max_D}")
-        positive_int(self.max_models, "max_models", low=1)
+        if positive_int(self.D_up_to, "D_up_to") > 1:
+            raise ValueError(f"D_up_to: expected 0 or 1, got {self.D_up_to}")
+        positive_int(self.fits_up_to, "fits_up_to", low=1)
         boolean(self.seasonal, "seasonal")
         alpha = number(self.alpha, "alpha")
         if not 0.0 < alpha < 1.0:
@@ -168,22 +168,24 @@ class AutoArima:
 
     def _allowed(self, c: Candidate, m: int, integration: int) -> bool:
         p, q, sp, sq, const = c
-        if min(p, q, sp, sq) < 0 or p > self.max_p or q > self.max_q:
+        if min(p, q, sp, sq) < 0 or p > self.p_up_to or q > self.q_up_to:
             return False
         if m < 2 and (sp or sq):
             return False
-        if sp > self.max_P or sq > self.max_Q or p + q + sp + sq > self.max_order:
+        if sp > self.P_up_to or sq > self.Q_up_to or p + q + sp + sq > self.terms_up_to:
             return False
         return not (const and integration > 1)
 
-    def fit(self, y: np.ndarray, *, season: int, covariates: np.ndarray | None = None) -> AutoArima:
+    def fit(
+        self, y: np.ndarray, *, season: int, covariates: np.ndarray | None = None
+    ) -> ArimaSearch:
         """Choose d, D and the orders on ``y``, then keep the best model's fit."""
         self._checked()
-        y = series(y, "auto_arima")
-        season = season_length(season, "auto_arima")
+        y = series(y, "arima_search")
+        season = season_length(season, "arima_search")
         n = y.shape[0]
-        need_length(n, MIN_LENGTH, "auto_arima", "the automatic order search")
-        exog = covariate_matrix(covariates, n, "auto_arima", "training")
+        need_length(n, MIN_LENGTH, "arima_search", "the automatic order search")
+        exog = covariate_matrix(covariates, n, "arima_search", "training")
         m = season if self.seasonal and season > 1 else 1
 
         x = y
@@ -191,10 +193,10 @@ class AutoArima:
             design = np.column_stack([np.ones(n), exog])
             beta = np.linalg.lstsq(design, y, rcond=None)[0]
             x = y - design @ beta
-        big_d = choose_seasonal_d(x, m, int(self.max_D))
+        big_d = choose_seasonal_d(x, m, int(self.D_up_to))
         if big_d:
             x = x[m:] - x[:-m]
-        d = choose_d(x, int(self.max_d), float(self.alpha))
+        d = choose_d(x, int(self.d_up_to), float(self.alpha))
         integration = d + big_d
         n_exog = 0 if exog is None else exog.shape[1]
 
@@ -205,7 +207,7 @@ class AutoArima:
             if c in scores:
                 return scores[c]
             scores[c] = np.inf
-            if len(fitted) >= int(self.max_models) or not self._allowed(c, m, integration):
+            if len(fitted) >= int(self.fits_up_to) or not self._allowed(c, m, integration):
                 return np.inf
             p, q, sp, sq, const = c
             order = (p, d, q)
@@ -235,17 +237,17 @@ class AutoArima:
         best: Candidate | None = None
         for p, q, sp, sq in starts:
             c = (
-                min(p, self.max_p),
-                min(q, self.max_q),
-                min(sp, self.max_P),
-                min(sq, self.max_Q),
+                min(p, self.p_up_to),
+                min(q, self.q_up_to),
+                min(sp, self.P_up_to),
+                min(sq, self.Q_up_to),
                 const0,
             )
             if score(c) < (scores[best] if best is not None else np.inf):
                 best = c
         if best is None:
             raise ConvergenceError(
-                f"auto_arima: none of the starting models (d={d}, D={big_d}) could be fitted"
+                f"arima_search: none of the starting models (d={d}, D={big_d}) could be fitted"
             )
         improved = True
         while improved:
@@ -299,4 +301,4 @@ class AutoArima:
         levels: tuple[float, ...] = (),
     ) -> np.ndarray | Forecast:
         """Forecast ``horizon`` steps with the chosen model (regressors over those steps)."""
-        return predict_fitted(self, "auto_arima", horizon, covariates, levels)
+        return predict_fitted(self, "arima_search", horizon, covariates, levels)
