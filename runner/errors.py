@@ -30,12 +30,3 @@ class DataError(CastgridError):
 
 class PluginError(CastgridError):
     """A plugin forecaster cannot be imported, built, or does not honour the protocol."""
-
-
-class TaskError(Exception):
-    """A single forecasting task failed; recorded in failures.csv, never raised to the user."""
-
-    def __init__(self, reason: str, message: str) -> None:
-        super().__init__(f"{reason}: {message}")
-        self.reason = reason
-        self.message = message

@@ -69,14 +69,19 @@ def prepare(config: str | Path | Config, config_path: Path | None = None) -> Pla
     one line naming the config field, not a failed task per series.
     """
     from runner.config import load_config
+    from runner.forecasters.specs import forecaster_specs
     from runner.forecasters.validation import validate_forecasters
+    from runner.scoring.metrics import DEFAULT_METRICS, check_metrics
 
     if isinstance(config, (str, Path)):
         config_path = Path(config)
         config = load_config(config_path)
     config_path = config_path or Path("config.yaml")
+    check_metrics(config.metrics, config.rank_by, bool(config.intervals), str(config_path))
+    if config.metrics is None:
+        config = config.model_copy(update={"metrics": list(DEFAULT_METRICS)})
     validate_forecasters(config, config_path)
-    return build_plan(config, config_path)
+    return build_plan(config, forecaster_specs(config), config_path)
 
 
 def run(

@@ -1,18 +1,67 @@
-"""``castgrid schema``: print the JSON Schema of the config."""
+"""``castgrid schema``: the JSON Schema of the config, for editors and CI checks.
+
+The structure comes from the pydantic models (:mod:`runner.config.model`); the enumerations of
+forecaster kinds and metric names come from their tables (:data:`runner.forecasters.registry.KINDS`,
+:data:`runner.scoring.metrics.METRICS`), so the schema lists exactly what a run accepts.
+"""
 
 from __future__ import annotations
 
 import argparse
 import json
+from typing import Any
 
-from runner.config import json_schema
+
+def config_schema() -> dict[str, Any]:
+    """The JSON Schema of a castgrid config, with every enumeration filled in."""
+    from runner.config import Config
+    from runner.forecasters.registry import PLUGIN, kinds_for
+    from runner.scoring.metrics import METRICS
+
+    schema = Config.model_json_schema()
+    schema["title"] = "castgrid experiment config"
+    props, defs = schema["properties"], schema["$defs"]
+    baselines = kinds_for("baseline")
+    # A baseline is written as its name, or as {name: {params}} (README, "baselines").
+    props["baselines"] = {
+        "title": "Baselines",
+        "description": "benchmark forecasters; default: every one that applies",
+        "default": None,
+        "anyOf": [
+            {
+                "type": "array",
+                "items": {
+                    "anyOf": [
+                        {"type": "string", "enum": baselines},
+                        {
+                            "type": "object",
+                            "minProperties": 1,
+                            "maxProperties": 1,
+                            "propertyNames": {"enum": baselines},
+                            "additionalProperties": {"anyOf": [{"type": "object"},
+                                                               {"type": "null"}]},
+                        },
+                    ]
+                },
+            },
+            {"type": "null"},
+        ],
+    }
+    defs.pop("BaselineSpec", None)
+    defs["ModelConfig"]["properties"]["kind"] = {
+        "title": "Kind", "type": "string", "enum": [*kinds_for("candidate"), PLUGIN],
+    }
+    names = [m.name for m in METRICS]
+    props["metrics"]["anyOf"][0]["items"] = {"type": "string", "enum": names}
+    props["rank_by"]["enum"] = [m.name for m in METRICS if m.can_rank]
+    return schema
 
 
 def add_arguments(parser: argparse.ArgumentParser) -> None:
-    """No options."""
+    """``castgrid schema`` takes no arguments."""
 
 
 def main(args: argparse.Namespace) -> int:
-    """Print the schema as indented JSON."""
-    print(json.dumps(json_schema(), indent=2, sort_keys=True))
+    """Print the schema as JSON."""
+    print(json.dumps(config_schema(), indent=2, sort_keys=True))
     return 0

@@ -103,10 +103,3 @@ def load_config(path: str | Path) -> Config:
         problem = getattr(exc, "problem", None) or "not valid YAML"
         raise ConfigError(f"{path}: {where}{problem}") from None
     return parse_config(data, str(path))
-
-
-def json_schema() -> dict[str, Any]:
-    """JSON Schema of the config, for editors."""
-    schema = Config.model_json_schema()
-    schema["title"] = "castgrid experiment config"
-    return schema

@@ -7,7 +7,6 @@ default silently, since that would skew every score without anyone noticing.
 from __future__ import annotations
 
 import hashlib
-import itertools
 import json
 import re
 from pathlib import Path
@@ -21,20 +20,6 @@ from pydantic import (
     model_validator,
 )
 
-BASELINE_KINDS = (
-    "naive",
-    "moving_average",
-    "seasonal_naive",
-    "season_average",
-    "drift",
-    "mean",
-)
-#: Baselines that only make sense when the season length is above 1.
-SEASONAL_BASELINES = ("seasonal_naive", "season_average")
-MODEL_KINDS = ("arima", "ets", "theta", "arima_search", "plugin")
-POINT_METRICS = ("me", "mae", "mse", "rmse", "mape", "smape", "mase", "rmsse", "r2")
-INTERVAL_METRICS = ("coverage", "winkler", "pinball")
-DEFAULT_METRICS = ["mae", "rmse", "mase", "rmsse", "smape"]
 #: Names an earlier castgrid release accepted, and the names that replaced them. A config that
 #: still uses one gets a one-line error naming the new name, never a silent fallback.
 RENAMED_KINDS = {"window_average": "moving_average", "auto_arima": "arima_search"}
@@ -181,7 +166,8 @@ class ModelConfig(_Strict):
     """A candidate forecaster; ``grid`` expands it into one candidate per combination."""
 
     name: str
-    kind: Literal["arima", "ets", "theta", "arima_search", "plugin"]
+    #: a kind of :data:`runner.forecasters.registry.KINDS`, or ``plugin``
+    kind: str
     params: dict[str, Any] = Field(default_factory=dict)
     grid: dict[str, list[Any]] = Field(default_factory=dict)
     entry: str | None = None
@@ -237,14 +223,14 @@ class Config(_Strict):
 
     experiment: str
     description: str | None = None
-    seed: int = 0
     horizon: int = Field(ge=1)
     season: int | None = Field(default=None, ge=1)
     datasets: list[DatasetConfig] = Field(min_length=1)
     windows: WindowsConfig
     baselines: list[BaselineSpec] | None = None
     models: list[ModelConfig] = Field(default_factory=list)
-    metrics: list[str] = Field(default_factory=lambda: list(DEFAULT_METRICS))
+    #: None: the metric table's defaults (filled in by :func:`runner.pipeline.prepare`).
+    metrics: list[str] | None = None
     rank_by: str = "mase"
     reference: str | None = None
     intervals: list[float] = Field(default_factory=list)
@@ -276,20 +262,25 @@ class Config(_Strict):
                 raise ValueError(f"expected a baseline name or {{name: {{params}}}}, got {item!r}")
             if kind in RENAMED_KINDS:
                 raise ValueError(f"baseline {kind!r} is now called {RENAMED_KINDS[kind]!r}")
-            if kind not in BASELINE_KINDS:
-                raise ValueError(
-                    f"unknown baseline {kind!r}; expected one of {', '.join(BASELINE_KINDS)}"
-                )
             out.append({"kind": kind, "params": params})
         return out
 
+    @model_validator(mode="before")
+    @classmethod
+    def _no_retired_keys(cls, data: Any) -> Any:
+        if isinstance(data, dict) and "seed" in data:
+            raise ValueError(
+                "seed: castgrid makes no random choice (every built-in forecaster and every "
+                "window is deterministic), so a seed would change nothing; remove the key, and "
+                "give a plugin that draws random numbers its own seed in its params"
+            )
+        return data
+
     @field_validator("metrics")
     @classmethod
-    def _known_metrics(cls, v: list[str]) -> list[str]:
-        known = POINT_METRICS + INTERVAL_METRICS
-        for m in v:
-            if m not in known:
-                raise ValueError(f"unknown metric {m!r}; expected some of {', '.join(known)}")
+    def _metrics_listed_once(cls, v: list[str] | None) -> list[str] | None:
+        if v is None:
+            return v
         if len(set(v)) != len(v):
             raise ValueError("a metric is listed twice")
         if not v:
@@ -312,26 +303,6 @@ class Config(_Strict):
         dup = sorted({n for n in names if names.count(n) > 1})
         if dup:
             raise ValueError(f"datasets: name {dup[0]!r} is used twice")
-        if self.rank_by not in self.metrics:
-            raise ValueError(f"rank_by: {self.rank_by!r} is not among metrics {self.metrics}")
-        if self.rank_by in INTERVAL_METRICS + ("r2",):
-            raise ValueError(
-                f"rank_by: {self.rank_by!r} cannot order a leaderboard; "
-                "expected a point error metric such as mase"
-            )
-        if set(self.metrics) & set(INTERVAL_METRICS) and not self.intervals:
-            raise ValueError("metrics: interval metrics need intervals: [levels]")
-        model_names = [c.name for c in candidate_specs(self)]
-        baseline_names = [b.name for b in baseline_specs(self)]
-        all_names = model_names + baseline_names
-        dup = sorted({n for n in all_names if all_names.count(n) > 1})
-        if dup:
-            raise ValueError(f"forecaster name {dup[0]!r} is used twice")
-        if self.reference is not None and self.reference not in baseline_names:
-            raise ValueError(
-                f"reference: {self.reference!r} is not one of the baselines "
-                f"({', '.join(baseline_names)})"
-            )
         return self
 
     def dataset_season(self, dataset: DatasetConfig) -> int | None:
@@ -351,58 +322,8 @@ class ForecasterSpec(BaseModel):
     entry: str | None = None
     #: True when the baseline list was not given and this one was added as a default.
     default: bool = False
-
-
-def _format_value(v: Any) -> str:
-    return json.dumps(v, separators=(",", ":")).replace('"', "")
-
-
-def baseline_specs(cfg: Config) -> list[ForecasterSpec]:
-    """The baselines of the run, in config order (every baseline when none are listed)."""
-    if cfg.baselines is None:
-        return [
-            ForecasterSpec(name=k, kind=k, role="baseline", params={}, default=True)
-            for k in BASELINE_KINDS
-        ]
-    out = []
-    for b in cfg.baselines:
-        name = b.kind
-        if b.params:
-            name += "[" + ",".join(f"{k}={_format_value(v)}" for k, v in b.params.items()) + "]"
-        out.append(ForecasterSpec(name=name, kind=b.kind, role="baseline", params=dict(b.params)))
-    return out
-
-
-def candidate_specs(cfg: Config) -> list[ForecasterSpec]:
-    """The candidate models after expanding every ``grid`` into its combinations."""
-    out = []
-    for m in cfg.models:
-        if not m.grid:
-            out.append(
-                ForecasterSpec(
-                    name=m.name, kind=m.kind, role="candidate", params=dict(m.params), entry=m.entry
-                )
-            )
-            continue
-        keys = list(m.grid)
-        for combo in itertools.product(*(m.grid[k] for k in keys)):
-            chosen = dict(zip(keys, combo))
-            label = ",".join(f"{k}={_format_value(v)}" for k, v in chosen.items())
-            out.append(
-                ForecasterSpec(
-                    name=f"{m.name}[{label}]",
-                    kind=m.kind,
-                    role="candidate",
-                    params={**m.params, **chosen},
-                    entry=m.entry,
-                )
-            )
-    return out
-
-
-def forecaster_specs(cfg: Config) -> list[ForecasterSpec]:
-    """Baselines then candidates: every forecaster the run evaluates."""
-    return baseline_specs(cfg) + candidate_specs(cfg)
+    #: True for benchmarks that need a season above 1 (seasonal naive, season average).
+    seasonal_only: bool = False
 
 
 def canonical_json(cfg: Config) -> str:

@@ -44,8 +44,7 @@ from typing import Any
 
 import numpy as np
 
-from runner.forecasters.contract import Forecast, as_forecast
-from runner.forecasters.validation import protocol_problem
+from runner.forecasters.contract import Forecast, as_forecast, protocol_problem
 
 CHECKS: tuple[str, ...] = (
     "protocol",

@@ -9,29 +9,70 @@ from __future__ import annotations
 
 import importlib
 import json
+from dataclasses import dataclass
 from functools import cache
 from typing import Any
 
 from runner.config import ForecasterSpec
 from runner.errors import PluginError
 
-BUILTIN: dict[str, str] = {
-    "naive": "runner.forecasters.benchmarks:Naive",
-    "moving_average": "runner.forecasters.benchmarks:MovingAverage",
-    "seasonal_naive": "runner.forecasters.benchmarks:SeasonalNaive",
-    "season_average": "runner.forecasters.benchmarks:SeasonAverage",
-    "drift": "runner.forecasters.benchmarks:Drift",
-    "mean": "runner.forecasters.benchmarks:Mean",
-    "arima": "runner.forecasters.models.arima:Arima",
-    "ets": "runner.forecasters.models.ets:ETS",
-    "theta": "runner.forecasters.models.theta:Theta",
-    "arima_search": "runner.forecasters.models.arima_search:ArimaSearch",
-}
+
+@dataclass(frozen=True)
+class Kind:
+    """One built-in forecaster kind, as a config names it.
+
+    ``role`` is ``baseline`` (a benchmark, listed under ``baselines:``) or ``candidate`` (a model,
+    listed under ``models:``). ``default`` benchmarks run when a config lists no baselines;
+    ``seasonal_only`` ones need a season above 1 and are left out of the defaults otherwise.
+    """
+
+    name: str
+    entry: str
+    role: str
+    summary: str
+    default: bool = False
+    seasonal_only: bool = False
+
+
+_B = "runner.forecasters.benchmarks"
+_M = "runner.forecasters.models"
+
+#: Every built-in kind. The config's kinds, the JSON Schema's enumerations, the default baseline
+#: list and the conformance tests all derive from this table.
+KINDS: tuple[Kind, ...] = (
+    Kind("naive", f"{_B}:Naive", "baseline", "every step is the last observed value",
+         default=True),
+    Kind("moving_average", f"{_B}:MovingAverage", "baseline",
+         "mean, median or mode of the last `size` values", default=True),
+    Kind("seasonal_naive", f"{_B}:SeasonalNaive", "baseline",
+         "the value at the same point of the last season", default=True, seasonal_only=True),
+    Kind("season_average", f"{_B}:SeasonAverage", "baseline",
+         "the mean of the last full season, for every step", default=True, seasonal_only=True),
+    Kind("drift", f"{_B}:Drift", "baseline",
+         "the line from the first to the last observation, extended", default=True),
+    Kind("mean", f"{_B}:Mean", "baseline", "the mean of the whole training window",
+         default=True),
+    Kind("arima", f"{_M}.arima:Arima", "candidate", "ARIMA of a given order (statsmodels)"),
+    Kind("ets", f"{_M}.ets:ETS", "candidate", "exponential smoothing state space model"),
+    Kind("theta", f"{_M}.theta:Theta", "candidate", "the theta method"),
+    Kind("arima_search", f"{_M}.arima_search:ArimaSearch", "candidate",
+         "ARIMA with orders chosen by a stepwise search per training window"),
+)
+BY_KIND: dict[str, Kind] = {k.name: k for k in KINDS}
+#: ``kind`` -> ``module:attribute`` of every built-in.
+BUILTIN: dict[str, str] = {k.name: k.entry for k in KINDS}
+#: The kind of a user's own forecaster, named by ``entry: module:attribute``.
+PLUGIN = "plugin"
+
+
+def kinds_for(role: str) -> list[str]:
+    """Names of the built-in kinds of ``role`` (``baseline`` or ``candidate``)."""
+    return [k.name for k in KINDS if k.role == role]
 
 
 def entry_of(spec: ForecasterSpec) -> str:
     """The ``module:attribute`` that builds ``spec``."""
-    if spec.kind == "plugin":
+    if spec.kind == PLUGIN:
         assert spec.entry is not None
         return spec.entry
     return BUILTIN[spec.kind]

@@ -15,46 +15,11 @@ import re
 from pathlib import Path
 from typing import Any
 
-from runner.config import Config, ForecasterSpec, baseline_specs, candidate_specs
+from runner.config import Config, ForecasterSpec
 from runner.errors import ConfigError, PluginError
+from runner.forecasters.contract import protocol_problem
 from runner.forecasters.registry import entry_of, load_entry
-
-#: Keyword arguments each protocol method must accept (beyond its first positional one).
-PROTOCOL: dict[str, tuple[str, ...]] = {
-    "fit": ("season", "covariates"),
-    "predict": ("covariates", "levels"),
-}
-PROTOCOL_TEXT = (
-    "fit(y, *, season, covariates=None) -> self and "
-    "predict(horizon, *, covariates=None, levels=()) -> array or Forecast"
-)
-
-
-def protocol_problem(obj: Any) -> str | None:
-    """Why ``obj`` does not offer the forecaster protocol's methods, or None when it does.
-
-    Looks at the methods only (presence and the keywords they accept), never calls them.
-    """
-    for method, keywords in PROTOCOL.items():
-        fn = getattr(obj, method, None)
-        if fn is None or not callable(fn):
-            return f"has no {method} method (a forecaster needs {PROTOCOL_TEXT})"
-        try:
-            sig = inspect.signature(fn)
-        except (TypeError, ValueError):
-            continue  # a builtin or C callable: nothing to read, let the run show it
-        params = list(sig.parameters.values())
-        if any(p.kind is p.VAR_KEYWORD for p in params):
-            continue
-        names = {p.name for p in params if p.kind in (p.KEYWORD_ONLY, p.POSITIONAL_OR_KEYWORD)}
-        missing = [k for k in keywords if k not in names]
-        if missing:
-            return f"{method} does not accept the keyword {missing[0]!r} (expected {PROTOCOL_TEXT})"
-        positional = [p for p in params if p.kind in (p.POSITIONAL_ONLY, p.POSITIONAL_OR_KEYWORD)]
-        if not positional and not any(p.kind is p.VAR_POSITIONAL for p in params):
-            first = "y" if method == "fit" else "horizon"
-            return f"{method} takes no positional argument for {first} (expected {PROTOCOL_TEXT})"
-    return None
+from runner.forecasters.specs import baseline_specs, candidate_specs, check_specs
 
 
 def _locations(cfg: Config) -> list[tuple[ForecasterSpec, str, dict[str, str]]]:
@@ -96,6 +61,7 @@ def validate_forecasters(cfg: Config, config_path: str | Path) -> None:
     rejected, as ``FILE: models[i].params.NAME: message``.
     """
     src = str(config_path)
+    check_specs(cfg, src)
     for spec, loc, source in _locations(cfg):
         entry = entry_of(spec)
         field = f"{loc}.entry" if spec.kind == "plugin" else f"{loc} ({spec.kind})"

@@ -35,7 +35,6 @@ def _dict_array(codes: np.ndarray, labels: list[str]):
 
 
 def _versions() -> dict[str, str]:
-    import joblib
     import pyarrow
     import pydantic
     import scipy
@@ -50,7 +49,6 @@ def _versions() -> dict[str, str]:
         "scipy": scipy.__version__,
         "pydantic": pydantic.__version__,
         "pyarrow": pyarrow.__version__,
-        "joblib": joblib.__version__,
     }
 
 

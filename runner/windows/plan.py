@@ -7,7 +7,7 @@ from pathlib import Path
 
 import numpy as np
 
-from runner.config import SEASONAL_BASELINES, Config, ForecasterSpec, forecaster_specs, load_config
+from runner.config import Config, ForecasterSpec, load_config
 from runner.data import Panel, load_panel
 from runner.errors import DataError
 from runner.windows.folds import Scheme, fold_bounds
@@ -82,7 +82,7 @@ def plan_dataset(
     applicable = [
         i
         for i, s in enumerate(specs)
-        if not (s.default and s.kind in SEASONAL_BASELINES and season <= 1)
+        if not (s.default and s.seasonal_only and season <= 1)
     ]
     reference = _reference(cfg, [specs[i] for i in applicable], season, source)
     parts: list[np.ndarray] = []
@@ -130,10 +130,12 @@ def plan_dataset(
     )
 
 
-def build_plan(config: Config | str | Path, config_path: Path | None = None) -> Plan:
-    """Load every dataset of ``config`` and lay out its folds; raises on any bad input.
+def build_plan(
+    config: Config | str | Path, specs: list[ForecasterSpec], config_path: Path | None = None
+) -> Plan:
+    """Load every dataset of ``config`` and lay out the folds of ``specs``; raises on bad input.
 
-    Forecasters are not checked here: :func:`runner.pipeline.prepare` checks them first.
+    :func:`runner.pipeline.prepare` checks the forecasters and expands ``specs`` first.
     """
     if isinstance(config, (str, Path)):
         config_path = Path(config)
@@ -141,7 +143,6 @@ def build_plan(config: Config | str | Path, config_path: Path | None = None) -> 
     else:
         cfg = config
         config_path = config_path or Path("config.yaml")
-    specs = forecaster_specs(cfg)
     base = config_path.parent
     plans = []
     for ds in cfg.datasets:
