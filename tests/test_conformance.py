@@ -27,7 +27,7 @@ def test_every_builtin_passes(kind):
     factory = load_entry(BUILTIN[kind])
     report = check_forecaster(factory, params=FAST_PARAMS.get(kind, {}))
     assert report.passed, str(report)
-    assert [r.name for r in report.results] == list(CHECKS)
+    assert [r.name for r in report.checks] == list(CHECKS)
 
 
 def test_seasonal_arima_and_multiplicative_ets_pass():
