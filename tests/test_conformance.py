@@ -258,3 +258,15 @@ def test_a_constructor_that_raises_fails_every_check():
     report = check_forecaster(factory)
     assert report.failed == list(CHECKS)
     assert "no licence server" in report.result("protocol").message
+
+
+def test_one_check_runs_by_itself_and_unknown_names_are_refused():
+    """Each check is a module-level function; ``only`` runs just the named ones."""
+    from runner.forecasters import conformance
+
+    report = check_forecaster(RecordingForecaster, only=("fit_returns_self", "protocol"))
+    assert [r.name for r in report.checks] == ["protocol", "fit_returns_self"]  # CHECKS order
+    assert report.passed
+    assert all(callable(getattr(conformance, f"check_{name}")) for name in CHECKS)
+    with pytest.raises(ValueError, match="unknown check 'no_such_check'"):
+        check_forecaster(RecordingForecaster, only=("no_such_check",))
