@@ -1,12 +1,13 @@
 """The forecast cache: one SQLite file of finished forecasts, keyed by everything they depend on.
 
-A task's key is a SHA-256 over the forecaster's identity (kind, entry, canonical parameters,
-implementation version: :func:`runner.forecasters.registry.identity`), the training values it saw
-(raw float64 bytes), the covariates it saw (training and test block, only for forecasters that are
-given covariates), the horizon, the season, the gap between training end and test block, and
-the interval levels. The position of a slice in its series is not part of the key, so appended
-observations leave the keys of every earlier fold unchanged, and a revised value changes exactly
-the keys of the folds whose training slice contains it.
+A task's key (:mod:`runner.execution.cache_keys`) is a SHA-256 over the forecaster's identity
+(kind, entry, canonical parameters, implementation version:
+:func:`runner.forecasters.registry.identity`), the training values it saw (raw float64 bytes), the
+covariates it saw (training and test block, only for forecasters that are given covariates), the
+horizon, the season, the gap between training end and test block, and the interval levels. The
+position of a slice in its series is not part of the key, so appended observations leave the keys
+of every earlier fold unchanged, and a revised value changes exactly the keys of the folds whose
+training slice contains it.
 
 The store is ``<cache folder>/forecasts.sqlite`` in WAL mode. Only the parent process writes,
 in small transactions as tasks finish, so a killed run loses at most the tasks in flight. Two
@@ -20,25 +21,23 @@ series every time. Failures that may come from the machine are never stored and 
 again next run: ``timeout`` and ``crash``, and errors of the kinds listed in
 :data:`TRANSIENT_ERRORS` (memory, files, imports).
 
-``castgrid cache info`` and ``castgrid cache prune CONFIG...`` are :func:`main`.
+``castgrid cache info`` and ``castgrid cache prune CONFIG...`` are :mod:`runner.cli.cache`.
 """
 
 from __future__ import annotations
 
-import hashlib
 import json
 import os
 import sqlite3
-import struct
 import sys
 import time
 from collections.abc import Iterable, Sequence
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
-if TYPE_CHECKING:  # the command line imports this module at start: keep it light
-    import numpy as np
+from runner.execution.cache_keys import task_keys
 
+if TYPE_CHECKING:  # the command line imports this module at start: keep it light
     from runner.execution.tasks import ModelTask, SharedData, TaskOutcome
 
 CACHE_FILE = "forecasts.sqlite"
@@ -47,7 +46,6 @@ SCHEMA_VERSION = "2"
 #: How long a writer waits for another run holding the write lock (milliseconds).
 BUSY_TIMEOUT_MS = 60_000
 _SQLITE_HEADER = b"SQLite format 3\x00"
-_KEY_PREFIX = b"castgrid-forecast-key\x00v1\x00"
 _LOOKUP_CHUNK = 500
 #: Failure reasons worth storing: the same forecaster on the same data fails the same way.
 STORED_FAILURES = ("error", "invalid-output")
@@ -89,69 +87,6 @@ def warn(message: str) -> None:
 def cache_file(folder: str | Path) -> Path:
     """The SQLite file inside a cache folder."""
     return Path(folder) / CACHE_FILE
-
-
-# ----------------------------------------------------------------------------- keys
-
-
-def _digest(*parts: bytes | memoryview) -> bytes:
-    h = hashlib.sha256()
-    for part in parts:
-        h.update(struct.pack("<Q", len(part)))
-        h.update(part)
-    return h.digest()
-
-
-def _array_bytes(a: np.ndarray) -> bytes:
-    import numpy as np
-
-    a = np.ascontiguousarray(a, dtype=np.float64)
-    return struct.pack("<Q", a.ndim) + struct.pack(f"<{a.ndim}Q", *a.shape) + a.tobytes()
-
-
-def task_keys(tasks: Sequence[ModelTask], shared: SharedData) -> list[bytes]:
-    """The cache key of every task (32 bytes each), in task order.
-
-    Slices shared by many forecasters are hashed once.
-    """
-    import numpy as np
-
-    from runner.forecasters.registry import accepts_covariates, identity
-
-    idents: dict[int, tuple[bytes, bool]] = {}
-    value_digests: dict[tuple[int, int, int], bytes] = {}
-    cov_digests: dict[tuple[int, int, int, int], bytes] = {}
-    h = shared.horizon
-    levels = np.asarray(shared.levels, dtype=np.float64).tobytes()
-    keys = []
-    for task in tasks:
-        if task.forecaster not in idents:
-            spec = shared.forecasters[task.forecaster]
-            idents[task.forecaster] = (
-                identity(spec).encode(), accepts_covariates(spec)
-            )
-        ident, uses_cov = idents[task.forecaster]
-        vk = (task.dataset, task.start, task.end)
-        if vk not in value_digests:
-            y = np.ascontiguousarray(shared.values[task.dataset][task.start : task.end],
-                                     dtype=np.float64)
-            value_digests[vk] = _digest(memoryview(y).cast("B"))
-        cov_digest = b"not-given"
-        cov = shared.covariates[task.dataset]
-        if uses_cov and cov is not None:
-            ck = (task.dataset, task.start, task.end, task.test_start)
-            if ck not in cov_digests:
-                cov_digests[ck] = _digest(
-                    _array_bytes(cov[task.start : task.end]),
-                    _array_bytes(cov[task.end : task.test_start + h]),
-                )
-            cov_digest = cov_digests[ck]
-        numbers = struct.pack("<qqq", h, task.season, task.test_start - task.end)
-        keys.append(_digest(_KEY_PREFIX, ident, value_digests[vk], cov_digest, numbers, levels))
-    return keys
-
-
-# ----------------------------------------------------------------------------- the store
 
 
 def _move_aside(path: Path) -> Path:
