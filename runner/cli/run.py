@@ -18,12 +18,16 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
 
 def main(args: argparse.Namespace) -> int:
     """Exit 0 when every task succeeded, 3 when some failed (2 on bad input, raised)."""
+    from runner.config.model import check_jobs
     from runner.errors import ConfigError
     from runner.pipeline import prepare, run
     from runner.scoring.leaderboard import to_terminal
 
-    if args.jobs is not None and (args.jobs == 0 or args.jobs < -1):
-        raise ConfigError(f"--jobs: expected a worker count >= 1 or -1, got {args.jobs}")
+    if args.jobs is not None:
+        try:
+            check_jobs(args.jobs)
+        except ValueError as exc:
+            raise ConfigError(f"--jobs: {exc}") from None
     t0 = time.perf_counter()
     plan = prepare(args.config)
     if not args.quiet:

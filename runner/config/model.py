@@ -126,6 +126,14 @@ class WindowsConfig(_Strict):
         return max(1, int(n * float(self.train[:-1]) / 100.0 + 1e-9))
 
 
+def check_jobs(v: int) -> int:
+    """``jobs`` as the config, ``--jobs`` and the execution API all accept it: >= 1, or -1 for
+    every core; raises ``ValueError`` otherwise."""
+    if v == 0 or v < -1:
+        raise ValueError(f"expected a worker count >= 1 or -1 for all cores, got {v}")
+    return v
+
+
 class ExecutionConfig(_Strict):
     """How tasks are run: workers, engine, cache and failure policy."""
 
@@ -139,9 +147,7 @@ class ExecutionConfig(_Strict):
     @field_validator("jobs")
     @classmethod
     def _jobs_nonzero(cls, v: int) -> int:
-        if v == 0 or v < -1:
-            raise ValueError(f"expected a worker count >= 1 or -1 for all cores, got {v}")
-        return v
+        return check_jobs(v)
 
     @field_validator("cache", mode="before")
     @classmethod

@@ -31,6 +31,7 @@ from __future__ import annotations
 import os
 from collections.abc import Callable, Sequence
 
+from runner.config.model import check_jobs
 from runner.execution.tasks import ModelTask, SharedData, TaskOutcome, failed
 
 OnDone = Callable[[TaskOutcome], None]
@@ -43,9 +44,7 @@ def resolve_jobs(jobs: int) -> int:
             return max(1, len(os.sched_getaffinity(0)))
         except AttributeError:  # not on Linux
             return max(1, os.cpu_count() or 1)
-    if jobs < 1:
-        raise ValueError(f"jobs: expected a worker count >= 1 or -1, got {jobs}")
-    return jobs
+    return check_jobs(jobs)
 
 
 def not_run(index: int) -> TaskOutcome:
