@@ -21,7 +21,8 @@ from pydantic import (
     model_validator,
 )
 
-BASELINE_KINDS = (
+#: The classic benchmarks a run gets when ``baselines`` is not given.
+DEFAULT_BASELINES = (
     "naive",
     "moving_average",
     "seasonal_naive",
@@ -29,6 +30,9 @@ BASELINE_KINDS = (
     "drift",
     "mean",
 )
+#: Every baseline a config may list: the classic ones and, only when listed, the
+#: intermittent-demand benchmarks.
+BASELINE_KINDS = DEFAULT_BASELINES + ("croston", "sba", "tsb")
 #: Baselines that only make sense when the season length is above 1.
 SEASONAL_BASELINES = ("seasonal_naive", "season_average")
 MODEL_KINDS = ("arima", "ets", "theta", "arima_search", "plugin")
@@ -358,11 +362,11 @@ def _format_value(v: Any) -> str:
 
 
 def baseline_specs(cfg: Config) -> list[ForecasterSpec]:
-    """The baselines of the run, in config order (every baseline when none are listed)."""
+    """The baselines of the run, in config order (the classic six when none are listed)."""
     if cfg.baselines is None:
         return [
             ForecasterSpec(name=k, kind=k, role="baseline", params={}, default=True)
-            for k in BASELINE_KINDS
+            for k in DEFAULT_BASELINES
         ]
     out = []
     for b in cfg.baselines:
