@@ -36,6 +36,7 @@ class Kind:
 
 _B = "runner.forecasters.benchmarks"
 _M = "runner.forecasters.models"
+_I = "runner.forecasters.intermittent"
 
 #: Every built-in kind. The config's kinds, the JSON Schema's enumerations, the default baseline
 #: list and the conformance tests all derive from this table.
@@ -52,6 +53,12 @@ KINDS: tuple[Kind, ...] = (
          "the line from the first to the last observation, extended", default=True),
     Kind("mean", f"{_B}:Mean", "baseline", "the mean of the whole training window",
          default=True),
+    Kind("croston", f"{_I}:Croston", "baseline",
+         "Croston's method for intermittent demand: smoothed size / smoothed interval"),
+    Kind("sba", f"{_I}:SBA", "baseline",
+         "the Syntetos-Boylan approximation: Croston's forecast times (1 - beta/2)"),
+    Kind("tsb", f"{_I}:TSB", "baseline",
+         "Teunter-Syntetos-Babai: smoothed demand probability times smoothed size"),
     Kind("arima", f"{_M}.arima:Arima", "candidate", "ARIMA of a given order (statsmodels)"),
     Kind("ets", f"{_M}.ets:ETS", "candidate", "exponential smoothing state space model"),
     Kind("theta", f"{_M}.theta:Theta", "candidate", "the theta method"),
