@@ -1,9 +1,10 @@
 """The leaderboard: one row per dataset and forecaster, ranked on the config's metric.
 
-Per forecaster and metric, the task scores are averaged within each fold (over the series),
-and the leaderboard gives the mean and the sample standard deviation of those fold means, so
-the spread says how much the score moves from one forecast origin to the next. Undefined task
-scores (NaN) are left out of a fold's mean and reported as warnings during the run.
+Per forecaster and metric, the task scores are averaged within each fold, that is each origin
+time of the dataset (over the series that have it), and the leaderboard gives the mean and the
+sample standard deviation of those fold means, so the spread says how much the score moves
+from one forecast origin to the next. Undefined task scores (NaN) are left out of a fold's mean
+and reported as warnings during the run.
 """
 
 from __future__ import annotations
@@ -13,6 +14,7 @@ import pandas as pd
 
 from runner.scoring import metrics as M
 from runner.scoring.evaluate import DatasetResult, Evaluation, ForecasterResult
+from runner.windows.plan import DatasetPlan
 
 #: Float format of every number written to leaderboard.csv (fixed, so reruns are byte-equal).
 FLOAT_FORMAT = ".6g"
@@ -68,6 +70,17 @@ def _versus_reference(
             "wilcoxon_p": c.wilcoxon_p, "significant": bool(c.significant)}
 
 
+def _origin_spacing(ev: Evaluation, dp: DatasetPlan) -> int:
+    """Steps between successive origins, which sets how many test blocks overlap.
+
+    ``step`` for origins that follow a rule; for a list of origins, its closest two.
+    """
+    w = ev.plan.config.windows
+    if w.origins is not None and len(dp.origins) > 1:
+        return int(np.diff(dp.origins).min())
+    return w.step or ev.plan.config.horizon
+
+
 def build_leaderboard(ev: Evaluation) -> pd.DataFrame:
     """The leaderboard as a DataFrame in its fixed row and column order."""
     cfg = ev.plan.config
@@ -86,12 +99,12 @@ def build_leaderboard(ev: Evaluation) -> pd.DataFrame:
                 "kind": r.spec.kind,
                 "role": r.spec.role,
                 "series": int(len(np.unique(dp.series[ok]))),
-                "folds": int(len(np.unique(dp.fold_group[ok]))),
+                "folds": int(len(np.unique(dp.origin[ok]))),
                 "tasks": int(ok.sum()),
                 "failed": int(r.failed.sum()),
             }
             for col in cols:
-                mean, sd = _fold_mean_sd(r.scores[col].per_task, dp.fold_group)
+                mean, sd = _fold_mean_sd(r.scores[col].per_task, dp.origin)
                 row[f"{col}_mean"], row[f"{col}_sd"] = mean, sd
             block.append(row)
         ref_row = next(b for b in block if b["forecaster"] == dp.reference)
@@ -107,9 +120,7 @@ def build_leaderboard(ev: Evaluation) -> pd.DataFrame:
                            wilcoxon_p=np.nan)
                 row["beats_reference"] = False
                 continue
-            vs = _versus_reference(
-                r, ref, dr, rank_by, cfg.horizon, cfg.windows.step or cfg.horizon
-            )
+            vs = _versus_reference(r, ref, dr, rank_by, cfg.horizon, _origin_spacing(ev, dp))
             significant = vs.pop("significant")
             row.update(vs)
             row["beats_reference"] = bool(
