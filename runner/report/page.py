@@ -394,13 +394,19 @@ def _fmt(v: Any, digits: int = 4) -> str:
     return str(v)
 
 
+def _cell(rec: dict[str, Any], column: str) -> str:
+    if column == "complete" and rec.get(column) is not None:
+        return "yes" if bool(rec[column]) else "no"
+    return _fmt(rec.get(column))
+
+
 def _board_html(ctx: _Context) -> str:
     m = ctx.rank_by
     # the rank metric and its significance first, so the columns that decide are in view
     others = [c for c in ctx.board.columns if c.endswith("_mean") and c != f"{m}_mean"]
     cols = (["rank", "forecaster", "role"]
             + [c for c in (f"{m}_mean", f"{m}_sd", f"{m}_rel", "win_share", "dm_better",
-                           "dm_worse", "wilcoxon_p", "beats_reference", "failed")
+                           "dm_worse", "wilcoxon_p", "beats_reference", "failed", "complete")
                if c in ctx.board.columns]
             + others)
     heads = {f"{m}_mean": m, f"{m}_sd": f"{m} sd", f"{m}_rel": f"{m} rel",
@@ -418,9 +424,11 @@ def _board_html(ctx: _Context) -> str:
             classes.append("ref")
         if rec.get("beats_reference") is True:
             classes.append("beats")
+        if "complete" in rec and not bool(rec["complete"]):
+            classes.append("incomplete")
         cells = "".join(
             f'<td class="{"num" if c not in ("forecaster", "role") else ""}'
-            f'{" key" if c == f"{m}_mean" else ""}">{html.escape(_fmt(rec.get(c)))}</td>'
+            f'{" key" if c == f"{m}_mean" else ""}">{html.escape(_cell(rec, c))}</td>'
             for c in cols
         )
         body.append(f'<tr class="{" ".join(classes)}">{cells}</tr>')
@@ -448,6 +456,9 @@ def _summary_html(ctx: _Context) -> str:
                          "task(s)")
         else:
             parts.append("not shown to beat the reference")
+    if "complete" in row and not bool(row["complete"]):
+        parts.append("incomplete (failed tasks): ranked after every complete forecaster, "
+                     "compared with the reference on the tasks both completed")
     return "<p class=\"summary\">" + "; ".join(parts) + ".</p>"
 
 
@@ -479,6 +490,7 @@ th,td{padding:5px 8px;border-bottom:1px solid #e7e9ec;text-align:left;white-spac
 th{background:#f0f2f5;font-weight:600}td.num{text-align:right;font-variant-numeric:tabular-nums}
 th.key,td.key{background:#eef4fb;font-weight:600}
 tr.baseline td{color:#555}tr.ref td{font-style:italic}tr.beats td.key{color:#1b7f43}
+tr.incomplete td{color:#a33}
 .grid{display:grid;grid-template-columns:1fr;gap:14px}
 figure.plot{background:#fff;border:1px solid #e1e4e8;border-radius:8px;margin:0;padding:10px}
 figure.plot img{width:100%;height:auto;display:block}
@@ -509,7 +521,9 @@ def _page(manifest: dict[str, Any], sections: list[str], failures_html: str) -> 
         "the Diebold-Mariano test (Harvey-Leybourne-Newbold correction) finds a significant "
         "difference at 5%; <i>Wilcoxon p</i>: signed-rank test over the series' mean loss "
         "differences; <i>beats ref.</i>: better on average, Wilcoxon p &lt; 0.05 and no "
-        "failed tasks.</p>",
+        "failed tasks. A forecaster with failed tasks (<i>complete</i>: no) ranks below every "
+        "complete one; its rel and significance are on the tasks both it and the reference "
+        "completed.</p>",
     ]
     return (
         '<!DOCTYPE html>\n<html lang="en"><head><meta charset="utf-8">'
