@@ -332,3 +332,16 @@ def test_check_prints_the_shared_origins(tmp_path, cli):
     ks = rule_origins(76, 40, 4, 4)
     assert (f"origins: {len(ks)} ({quarter(ks[0])} to {quarter(ks[-1])}; shared by every "
             "series)") in res.stdout
+
+
+def test_series_off_the_datasets_time_grid_are_a_data_error(tmp_path):
+    # every series steps by 2, but "b" sits between "a"'s times: no origin can be shared
+    rows = [f"a,{t},{t % 5}" for t in range(0, 60, 2)] + [f"b,{t},{t % 3}" for t in range(1, 61, 2)]
+    (tmp_path / "d.csv").write_text("id,t,y\n" + "\n".join(rows) + "\n")
+    (tmp_path / "c.yaml").write_text(
+        "experiment: grid\nhorizon: 2\nseason: 1\n"
+        "datasets: [{name: d, path: d.csv, series: id, time: t, target: y}]\n"
+        "windows: {train: 10}\nbaselines: [naive]\nexecution: {jobs: 1, cache: false}\n")
+    with pytest.raises(CastgridError, match=r"d\.csv: dataset 'd': series 'b' is not on the "
+                                            r"dataset's time grid \(time 1 is not"):
+        build_plan(tmp_path / "c.yaml")
