@@ -45,16 +45,22 @@ def output_dir(cfg: Config, override: str | Path | None = None) -> Path:
 
 
 def scores_frame(ev: Evaluation) -> pd.DataFrame:
-    """One row per dataset, series, forecaster and fold with every metric column."""
+    """One row per dataset, series, forecaster and fold with every metric column.
+
+    ``fold`` numbers the dataset's origins from the oldest; ``origin`` is the time of the
+    fold's last training observation, the same for every series.
+    """
     frames = []
     for dr in ev.datasets:
         dp = dr.plan
+        origins = dp.panel.format_time(dp.ends - 1)
         for r in dr.results:
             frame = pd.DataFrame({
                 "dataset": dp.panel.name,
                 "series": [dp.panel.keys[i] for i in dp.series],
                 "forecaster": r.spec.name,
                 "fold": dp.fold,
+                "origin": origins,
             })
             for col, sc in r.scores.items():
                 frame[col] = sc.per_task

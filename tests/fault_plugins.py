@@ -157,3 +157,21 @@ class SlowLine(LineFit):
     def fit(self, y, *, season, covariates=None):
         time.sleep(self.delay)
         return super().fit(y, season=season, covariates=covariates)
+
+
+class FailsUnlessLength(Exits):
+    """Raises ValueError on every training slice except those of ``keep_length`` values.
+
+    With expanding windows each fold has its own training length, so this fails every fold
+    but one: a forecaster with failed tasks, for the ranking tests.
+    """
+
+    def __init__(self, keep_length: int = 0) -> None:
+        super().__init__(when_length=keep_length)
+        self.keep_length = keep_length
+
+    def fit(self, y, *, season, covariates=None):
+        if len(y) != self.keep_length:
+            raise ValueError(f"only fits {self.keep_length} values, got {len(y)}")
+        self.last_ = float(y[-1])
+        return self

@@ -11,7 +11,8 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
 
 
 def main(args: argparse.Namespace) -> int:
-    """Print datasets, series, folds per series, forecasters, tasks and how many are cached."""
+    """Print datasets, series, origins, folds per series, forecasters, tasks and how many are
+    cached."""
     import numpy as np
 
     from runner.pipeline import prepare
@@ -34,6 +35,11 @@ def main(args: argparse.Namespace) -> int:
             f"  folds per series: {folds.min()}-{folds.max()}; {used} series evaluated, "
             f"{len(dp.skipped)} too short"
         )
+        labels = dp.origin_labels()
+        span = f"{labels[0]} to {labels[-1]}" if len(labels) > 1 else f"{labels[0]}"
+        where = ("each series' own, from its last observation" if cfg.windows.align == "end"
+                 else "shared by every series")
+        print(f"  origins: {len(labels)} ({span}; {where})")
         for s in dp.skipped:
             print(f"  too short: {s}")
         for note in p.notes:

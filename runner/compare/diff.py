@@ -246,7 +246,18 @@ def _data_note(old: dict[str, Any], new: dict[str, Any]) -> str:
         if key in old or key in new:
             a, b = old.get(key, "?"), new.get(key, "?")
             parts.append(f"{key} {a}" if a == b else f"{key} {a} -> {b}")
+    if "origins" in old or "origins" in new:
+        a, b = _origins_text(old.get("origins")), _origins_text(new.get("origins"))
+        parts.append(f"origins {a}" if a == b else f"origins {a} -> {b}")
     return "; ".join(parts)
+
+
+def _origins_text(origins: Any) -> str:
+    """A dataset's origins as the manifest records them: ``8 (2020-12-01 to 2024-06-01)``."""
+    if not isinstance(origins, dict):
+        return "?"
+    count, first, last = origins.get("count"), origins.get("first"), origins.get("last")
+    return f"{count} ({first} to {last})" if count != 1 else f"1 ({first})"
 
 
 def compare(old: Results, new: Results) -> Diff:

@@ -97,14 +97,22 @@ class DatasetConfig(_Strict):
 
 
 class WindowsConfig(_Strict):
-    """The rolling-origin scheme (see :mod:`runner.windows.folds` for the fold rule)."""
+    """The rolling-origin scheme (see :mod:`runner.windows.folds` for the origin rule).
+
+    An origin is the time of the last training observation. Origins are points on the
+    dataset's time axis shared by all its series: counted from the dataset's first time by
+    default, or given as ``origins`` (a list of times) or ``first_origin`` (then every
+    ``step``). ``align: end`` instead ties them to each series' last observation.
+    """
 
     scheme: Literal["expanding", "sliding"] = "expanding"
     train: int | str
     step: int | None = Field(default=None, ge=1)
     folds: int | None = Field(default=None, ge=1)
     gap: int = Field(default=0, ge=0)
-    align: Literal["end", "start"] = "end"
+    align: Literal["start", "end"] = "start"
+    origins: list[int | str] | None = None
+    first_origin: int | str | None = None
 
     @field_validator("train", mode="before")
     @classmethod
@@ -119,11 +127,74 @@ class WindowsConfig(_Strict):
                 return f"{float(m.group(1)):g}%"
         raise ValueError(f'expected a count >= 1 or a share like "50%", got {json.dumps(v)}')
 
-    def train_length(self, n: int) -> int:
-        """Training length for a series of ``n`` observations (a share is rounded down)."""
+    @field_validator("first_origin", mode="before")
+    @classmethod
+    def _first_origin_is_a_time(cls, v: Any) -> Any:
+        return None if v is None else _config_time(v)
+
+    @field_validator("origins", mode="before")
+    @classmethod
+    def _origins_are_times(cls, v: Any) -> Any:
+        if v is None:
+            return None
+        if not isinstance(v, list) or not v:
+            raise ValueError(f"expected a non-empty list of times, got {_shown(v)}")
+        times = [_config_time(x) for x in v]
+        seen: set[Any] = set()
+        for t in times:
+            if t in seen:
+                raise ValueError(f"origin {t} is listed twice")
+            seen.add(t)
+        return times
+
+    @model_validator(mode="after")
+    def _one_way_to_place_origins(self) -> WindowsConfig:
+        if self.origins is not None and self.first_origin is not None:
+            raise ValueError("origins and first_origin exclude each other; keep one")
+        given = "origins" if self.origins is not None else "first_origin"
+        if self.align == "end" and (self.origins is not None or self.first_origin is not None):
+            raise ValueError(
+                f"{given} places origins on the dataset's time axis; it cannot be combined "
+                "with align: end (remove align or the origins)"
+            )
+        return self
+
+    def train_length(self, span: int) -> int:
+        """Training length on a time axis of ``span`` steps (a share is rounded down)."""
         if isinstance(self.train, int):
             return self.train
-        return max(1, int(n * float(self.train[:-1]) / 100.0 + 1e-9))
+        return max(1, int(span * float(self.train[:-1]) / 100.0 + 1e-9))
+
+
+def _shown(v: Any) -> str:
+    try:
+        return json.dumps(v)
+    except TypeError:
+        return repr(v)
+
+
+def _config_time(v: Any) -> int | str:
+    """A time written in the config: a whole number, or a date / date-time kept as ISO text."""
+    import datetime as dt
+
+    if isinstance(v, bool):
+        raise ValueError(f"expected a date or a whole number, got {json.dumps(v)}")
+    if isinstance(v, int):
+        return v
+    if isinstance(v, dt.datetime):
+        return v.isoformat()
+    if isinstance(v, dt.date):
+        return v.isoformat()
+    if isinstance(v, str):
+        import pandas as pd
+
+        try:
+            stamp = pd.Timestamp(v.strip())
+        except (ValueError, TypeError):
+            stamp = None
+        if stamp is not None and not pd.isna(stamp):
+            return v.strip()
+    raise ValueError(f"expected a date or a whole number, got {_shown(v)}")
 
 
 def check_jobs(v: int) -> int:

@@ -196,7 +196,7 @@ def read_leaderboard(folder: ResultsFolder, rank_by: str | None = None) -> pd.Da
     for col in frame.columns:
         if col in ("dataset", "forecaster", "kind", "role"):
             continue
-        if col == "beats_reference":
+        if col in ("beats_reference", "complete"):
             frame[col] = frame[col].map(lambda v: str(v).strip().lower() == "true")
             continue
         converted = pd.to_numeric(frame[col], errors="coerce")

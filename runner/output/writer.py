@@ -24,6 +24,7 @@ from runner.output.reader import interval_columns
 from runner.scoring import metrics as M
 from runner.scoring.evaluate import Evaluation
 from runner.scoring.leaderboard import to_csv_text, to_markdown
+from runner.windows.plan import DatasetPlan
 
 
 def _dict_array(codes: np.ndarray, labels: list[str]):
@@ -52,6 +53,11 @@ def _versions() -> dict[str, str]:
     }
 
 
+def _origins_summary(dp: DatasetPlan) -> dict[str, Any]:
+    labels = dp.origin_labels()
+    return {"count": int(len(labels)), "first": str(labels[0]), "last": str(labels[-1])}
+
+
 def manifest(ev: Evaluation) -> dict[str, Any]:
     """Canonical config and hash, data fingerprints, versions and task counts (no timestamps)."""
     cfg = ev.plan.config
@@ -69,6 +75,7 @@ def manifest(ev: Evaluation) -> dict[str, Any]:
                 "fingerprint": dr.plan.panel.fingerprint,
                 "series": dr.plan.panel.n_series,
                 "observations": int(len(dr.plan.panel.values)),
+                "origins": _origins_summary(dr.plan),
             }
             for dr, ds in zip(ev.datasets, cfg.datasets)
         },
@@ -138,7 +145,9 @@ def _forecasts_table(ev: Evaluation):
     keys: list[str] = []
     times: list[np.ndarray] = []
     time_offset = 0
-    cols: dict[str, list[np.ndarray]] = {k: [] for k in ("d", "s", "f", "fold", "step", "t")}
+    cols: dict[str, list[np.ndarray]] = {
+        k: [] for k in ("d", "s", "f", "fold", "origin", "step", "t")
+    }
     values: dict[str, list[np.ndarray]] = {"actual": [], "forecast": []}
     bounds = [interval_columns(lv) for lv in levels]
     for lo, hi in bounds:
@@ -151,6 +160,8 @@ def _forecasts_table(ev: Evaluation):
         keys.extend(panel.keys)
         times.append(panel.format_time(np.arange(len(panel.values))))
         t_index = (dp.test_starts[:, None] + steps[None, :]).ravel() + time_offset
+        # the origin is the time of the last training observation, a time of the same table
+        origin_index = np.repeat(dp.ends - 1, h) + time_offset
         time_offset += len(panel.values)
         for r in dr.results:
             n = dp.n_tasks
@@ -158,6 +169,7 @@ def _forecasts_table(ev: Evaluation):
             cols["s"].append(np.repeat(dp.series + s_offset, h))
             cols["f"].append(np.full(n * h, names.index(r.spec.name)))
             cols["fold"].append(np.repeat(dp.fold, h))
+            cols["origin"].append(origin_index)
             cols["step"].append(np.tile(steps + 1, n))
             cols["t"].append(t_index)
             values["actual"].append(dr.actual.ravel())
@@ -172,6 +184,7 @@ def _forecasts_table(ev: Evaluation):
         "series": _dict_array(cat["s"], keys),
         "forecaster": _dict_array(cat["f"], names),
         "fold": pa.array(cat["fold"].astype(np.int32)),
+        "origin": _dict_array(cat["origin"], all_times),
         "step": pa.array(cat["step"].astype(np.int32)),
         "time": _dict_array(cat["t"], all_times),
     }
@@ -198,15 +211,16 @@ def _failures_frame(ev: Evaluation) -> pd.DataFrame:
     rows = []
     for dr in ev.datasets:
         dp = dr.plan
+        origins = dp.panel.format_time(dp.ends - 1)
         for r in dr.results:
             for t in np.flatnonzero(r.failed):
                 rows.append({
                     "dataset": dp.panel.name, "series": dp.panel.keys[dp.series[t]],
                     "forecaster": r.spec.name, "fold": int(dp.fold[t]),
-                    "reason": r.reason[t], "message": r.message[t],
+                    "origin": str(origins[t]), "reason": r.reason[t], "message": r.message[t],
                 })
-    return pd.DataFrame(rows, columns=["dataset", "series", "forecaster", "fold", "reason",
-                                       "message"])
+    return pd.DataFrame(rows, columns=["dataset", "series", "forecaster", "fold", "origin",
+                                       "reason", "message"])
 
 
 def _csv(frame: pd.DataFrame, path: Path) -> None:

@@ -5,8 +5,8 @@ a base64 PNG, so the page can be mailed or attached alone) and ``plots/<dataset>
 Per dataset it draws:
 
 * ``horizon``: the rank metric by forecast step per forecaster (horizon.csv);
-* ``folds``: the spread of per-fold scores (scores.parquet; a fold's score is the mean over
-  series of the rank metric);
+* ``folds``: the rank metric of each fold against its origin time (scores.parquet; a fold's
+  score is the mean over series, as in the leaderboard);
 * ``forecasts``: forecasts against actuals for the best and the worst series of the best
   candidate (the best forecaster when there are no candidates), with the reference's forecast
   and the first interval level for comparison (forecasts.parquet);
@@ -52,7 +52,7 @@ PLOTS = "plots"
 MAX_LINES = 8
 #: Figure width in inches: at savefig.dpi it matches the page's plot width, so text is not scaled.
 FIG_WIDTH = 9.2
-#: The fold-spread plot shows at most this many forecasters (best first).
+#: The skill plot shows at most this many forecasters (best first).
 MAX_BOXES = 16
 
 _CANDIDATE_COLORS = ["#1f77b4", "#d62728", "#2ca02c", "#9467bd", "#ff7f0e", "#17becf",
@@ -196,46 +196,49 @@ def plot_horizon(ctx: _Context, horizon: pd.DataFrame) -> bytes | None:
 
 
 def plot_folds(ctx: _Context, scores: pd.DataFrame) -> bytes | None:
-    """Box and points of per-fold scores (mean over series), best forecaster on top."""
-    import numpy as np
+    """The rank metric of each fold (mean over series) against its origin time.
+
+    One point per origin and forecaster: the same fold means the leaderboard's mean and
+    standard deviation are taken over, so a bad period shows as a dip shared by every line.
+    """
+    import pandas as pd
 
     part = scores[scores["dataset"] == ctx.dataset]
     if ctx.rank_by not in part.columns or part.empty:
         return None
-    per_fold = part.groupby(["forecaster", "fold"])[ctx.rank_by].mean()
-    names = [n for n in ctx.board["forecaster"] if n in per_fold.index.get_level_values(0)]
-    names = names[:MAX_BOXES]
-    data = [per_fold.loc[n].dropna().to_numpy() for n in names]
-    keep = [i for i, d in enumerate(data) if d.size]
-    if not keep:
+    key = _fold_key(part)
+    per_fold = part.groupby(["forecaster", key], observed=True)[ctx.rank_by].mean().dropna()
+    if per_fold.empty:
         return None
-    names, data = [names[i] for i in keep], [data[i] for i in keep]
-    fig = _new_figure(FIG_WIDTH, 0.9 + 0.32 * len(names))
+    fig = _new_figure(FIG_WIDTH, 3.6)
     ax = fig.add_subplot()
-    pos = np.arange(len(names))[::-1]
-    box = ax.boxplot(data, positions=pos, widths=0.55, patch_artist=True, showfliers=False,
-                     medianprops={"color": "#222222", "linewidth": 1.2}, **_horizontal())
-    rng = np.random.default_rng(0)  # jitter only; fixed so the picture is reproducible
-    for p, d, name, patch in zip(pos, data, names, box["boxes"]):
-        color = ctx.styles.get(name, {}).get("color", "#777777")
-        patch.set_facecolor(color)
-        patch.set_alpha(0.25)
-        patch.set_edgecolor(color)
-        ax.scatter(d, p + rng.uniform(-0.16, 0.16, d.size), s=18, color=color, zorder=3,
-                   edgecolors="white", linewidths=0.6)
-    ax.set_yticks(pos, names)
-    ax.set_xlabel(f"{ctx.rank_by} of a fold (mean over series)")
-    ax.set_title(f"fold-by-fold spread of {ctx.rank_by}")
-    ax.grid(axis="y", visible=False)
+    drawn = 0
+    for name in _shown(ctx):
+        if name not in per_fold.index.get_level_values(0):
+            continue
+        mine = per_fold.loc[name]
+        x = _time_axis(pd.Series(mine.index)) if key == "origin" else pd.Series(mine.index)
+        order = x.argsort(kind="stable").to_numpy()
+        ax.plot(x.to_numpy()[order], mine.to_numpy()[order], marker="o", markersize=3.5,
+                label=name, **ctx.styles.get(name, {}))
+        drawn += 1
+    if not drawn:
+        return None
+    ax.set_xlabel("origin (time of the last training observation)" if key == "origin"
+                  else "fold")
+    ax.set_ylabel(f"{ctx.rank_by} (mean over series)")
+    ax.set_title(f"{ctx.rank_by} fold by fold")
+    if key == "origin":
+        for label in ax.get_xticklabels():
+            label.set_rotation(30)
+            label.set_horizontalalignment("right")
+    _legend_outside(ax)
     return _png(fig)
 
 
-def _horizontal() -> dict[str, Any]:
-    """boxplot's horizontal switch: ``orientation`` from matplotlib 3.10, ``vert`` before."""
-    import matplotlib
-
-    major, minor = (int(x) for x in matplotlib.__version__.split(".")[:2])
-    return {"orientation": "horizontal"} if (major, minor) >= (3, 10) else {"vert": False}
+def _fold_key(frame: pd.DataFrame) -> str:
+    """Folds are named by their origin time; results written before it existed have ``fold``."""
+    return "origin" if "origin" in frame.columns else "fold"
 
 
 def _time_axis(values: pd.Series) -> pd.Series:
@@ -290,7 +293,7 @@ def plot_forecasts(ctx: _Context, forecasts: pd.DataFrame, scores: pd.DataFrame 
                 markersize=2.5, label="actual")
         mine = rows[rows["forecaster"] == best]
         color = ctx.styles.get(best, {}).get("color", "#1f77b4")
-        for i, (_, block) in enumerate(mine.groupby("fold")):
+        for i, (_, block) in enumerate(mine.groupby(_fold_key(mine), observed=True)):
             block = block.sort_values("_t")
             if levels:
                 lo, hi = interval_columns(levels[0])
@@ -301,7 +304,7 @@ def plot_forecasts(ctx: _Context, forecasts: pd.DataFrame, scores: pd.DataFrame 
                     label=best if i == 0 else None)
         if ctx.reference and ctx.reference != best:
             ref = rows[rows["forecaster"] == ctx.reference]
-            for i, (_, block) in enumerate(ref.groupby("fold")):
+            for i, (_, block) in enumerate(ref.groupby(_fold_key(ref), observed=True)):
                 block = block.sort_values("_t")
                 ax.plot(block["_t"], block["forecast"], color="#777777", linewidth=1.0,
                         linestyle="--", label=ctx.reference if i == 0 else None)
@@ -391,13 +394,19 @@ def _fmt(v: Any, digits: int = 4) -> str:
     return str(v)
 
 
+def _cell(rec: dict[str, Any], column: str) -> str:
+    if column == "complete" and rec.get(column) is not None:
+        return "yes" if bool(rec[column]) else "no"
+    return _fmt(rec.get(column))
+
+
 def _board_html(ctx: _Context) -> str:
     m = ctx.rank_by
     # the rank metric and its significance first, so the columns that decide are in view
     others = [c for c in ctx.board.columns if c.endswith("_mean") and c != f"{m}_mean"]
     cols = (["rank", "forecaster", "role"]
             + [c for c in (f"{m}_mean", f"{m}_sd", f"{m}_rel", "win_share", "dm_better",
-                           "dm_worse", "wilcoxon_p", "beats_reference", "failed")
+                           "dm_worse", "wilcoxon_p", "beats_reference", "failed", "complete")
                if c in ctx.board.columns]
             + others)
     heads = {f"{m}_mean": m, f"{m}_sd": f"{m} sd", f"{m}_rel": f"{m} rel",
@@ -415,9 +424,11 @@ def _board_html(ctx: _Context) -> str:
             classes.append("ref")
         if rec.get("beats_reference") is True:
             classes.append("beats")
+        if "complete" in rec and not bool(rec["complete"]):
+            classes.append("incomplete")
         cells = "".join(
             f'<td class="{"num" if c not in ("forecaster", "role") else ""}'
-            f'{" key" if c == f"{m}_mean" else ""}">{html.escape(_fmt(rec.get(c)))}</td>'
+            f'{" key" if c == f"{m}_mean" else ""}">{html.escape(_cell(rec, c))}</td>'
             for c in cols
         )
         body.append(f'<tr class="{" ".join(classes)}">{cells}</tr>')
@@ -445,6 +456,9 @@ def _summary_html(ctx: _Context) -> str:
                          "task(s)")
         else:
             parts.append("not shown to beat the reference")
+    if "complete" in row and not bool(row["complete"]):
+        parts.append("incomplete (failed tasks): ranked after every complete forecaster, "
+                     "compared with the reference on the tasks both completed")
     return "<p class=\"summary\">" + "; ".join(parts) + ".</p>"
 
 
@@ -476,6 +490,7 @@ th,td{padding:5px 8px;border-bottom:1px solid #e7e9ec;text-align:left;white-spac
 th{background:#f0f2f5;font-weight:600}td.num{text-align:right;font-variant-numeric:tabular-nums}
 th.key,td.key{background:#eef4fb;font-weight:600}
 tr.baseline td{color:#555}tr.ref td{font-style:italic}tr.beats td.key{color:#1b7f43}
+tr.incomplete td{color:#a33}
 .grid{display:grid;grid-template-columns:1fr;gap:14px}
 figure.plot{background:#fff;border:1px solid #e1e4e8;border-radius:8px;margin:0;padding:10px}
 figure.plot img{width:100%;height:auto;display:block}
@@ -506,7 +521,9 @@ def _page(manifest: dict[str, Any], sections: list[str], failures_html: str) -> 
         "the Diebold-Mariano test (Harvey-Leybourne-Newbold correction) finds a significant "
         "difference at 5%; <i>Wilcoxon p</i>: signed-rank test over the series' mean loss "
         "differences; <i>beats ref.</i>: better on average, Wilcoxon p &lt; 0.05 and no "
-        "failed tasks.</p>",
+        "failed tasks. A forecaster with failed tasks (<i>complete</i>: no) ranks below every "
+        "complete one; its rel and significance are on the tasks both it and the reference "
+        "completed.</p>",
     ]
     return (
         '<!DOCTYPE html>\n<html lang="en"><head><meta charset="utf-8">'
@@ -613,8 +630,11 @@ def _dataset_plots(ctx: _Context, horizon: pd.DataFrame | None, scores: pd.DataF
         p.missing = f"no {m} column for this dataset in {HORIZON}"
     out.append(p)
 
-    p = Plot(f"{d}-folds.png", "fold-by-fold spread",
-             "Each point is one fold's score (mean over series); boxes show quartiles.")
+    p = Plot(f"{d}-folds.png", f"{m} fold by fold",
+             "Each point is one fold, named by its origin (the time of the last training "
+             "observation): the forecasts made there, scored and averaged over the series that "
+             f"have that origin. The leaderboard's mean and sd of {m} are over these points. "
+             f"{shown}".strip())
     if scores is None:
         p.missing = f"{SCORES} is not in the results folder"
     else:

@@ -1,9 +1,16 @@
 """The leaderboard: one row per dataset and forecaster, ranked on the config's metric.
 
-Per forecaster and metric, the task scores are averaged within each fold (over the series),
-and the leaderboard gives the mean and the sample standard deviation of those fold means, so
-the spread says how much the score moves from one forecast origin to the next. Undefined task
-scores (NaN) are left out of a fold's mean and reported as warnings during the run.
+Per forecaster and metric, the task scores are averaged within each fold, that is each origin
+time of the dataset (over the series that have it), and the leaderboard gives the mean and the
+sample standard deviation of those fold means, so the spread says how much the score moves
+from one forecast origin to the next. Undefined task scores (NaN) are left out of a fold's mean
+and reported as warnings during the run.
+
+No forecaster gains rank by failing. A forecaster is ``complete`` when none of its tasks
+failed. Complete forecasters rank first, by the rank metric; those with failed tasks follow,
+by the rank metric among themselves. The relative score ``<rank_by>_rel`` and every
+significance column compare a forecaster with the reference on the tasks both completed (and
+both scored), never a forecaster's surviving folds with the reference's full set.
 """
 
 from __future__ import annotations
@@ -13,6 +20,7 @@ import pandas as pd
 
 from runner.scoring import metrics as M
 from runner.scoring.evaluate import DatasetResult, Evaluation, ForecasterResult
+from runner.windows.plan import DatasetPlan
 
 #: Float format of every number written to leaderboard.csv (fixed, so reruns are byte-equal).
 FLOAT_FORMAT = ".6g"
@@ -30,8 +38,11 @@ def _fold_mean_sd(values: np.ndarray, groups: np.ndarray) -> tuple[float, float]
     return float(fold_means.mean()), sd
 
 
-def _rank_order(values: np.ndarray, names: list[str], column: str) -> np.ndarray:
-    """1-based ranks: best first by the metric's direction, NaN last, ties by name."""
+def _rank_order(
+    values: np.ndarray, names: list[str], column: str, complete: np.ndarray | None = None
+) -> np.ndarray:
+    """1-based ranks: complete forecasters first, then best first by the metric's direction,
+    NaN last, ties by name."""
     mi = M.info(column)
     key = values.copy()
     if mi.better == "higher":
@@ -41,10 +52,37 @@ def _rank_order(values: np.ndarray, names: list[str], column: str) -> np.ndarray
     elif mi.better == "target":
         key = np.abs(key - mi.target)
     key = np.where(np.isnan(key), np.inf, key)
-    order = sorted(range(len(names)), key=lambda i: (key[i], names[i]))
+    first = np.ones(len(names), dtype=bool) if complete is None else np.asarray(complete, bool)
+    order = sorted(range(len(names)), key=lambda i: (not first[i], key[i], names[i]))
     ranks = np.empty(len(names), dtype=np.int64)
     ranks[order] = np.arange(1, len(names) + 1)
     return ranks
+
+
+def _shared_tasks(r: ForecasterResult, ref: ForecasterResult, rank_by: str) -> np.ndarray:
+    """Tasks both ``r`` and the reference completed and have a rank-metric score for."""
+    score = r.scores[rank_by].per_task
+    ref_score = ref.scores[rank_by].per_task
+    return ~r.failed & ~ref.failed & ~np.isnan(score) & ~np.isnan(ref_score)
+
+
+def _relative(
+    r: ForecasterResult, ref: ForecasterResult, origin: np.ndarray, rank_by: str
+) -> float:
+    """Rank metric of ``r`` over the reference's, both as fold means over the shared tasks.
+
+    NaN when there is no shared task, or the reference's mean is 0 or undefined.
+    """
+    both = _shared_tasks(r, ref, rank_by)
+    if not both.any():
+        return float("nan")
+    value, _ = _fold_mean_sd(r.scores[rank_by].per_task[both], origin[both])
+    ref_value, _ = _fold_mean_sd(ref.scores[rank_by].per_task[both], origin[both])
+    if M.info(rank_by).better == "abs":
+        value, ref_value = abs(value), abs(ref_value)
+    if not (np.isfinite(value) and np.isfinite(ref_value)) or ref_value == 0:
+        return float("nan")
+    return float(value / ref_value)
 
 
 def _versus_reference(
@@ -53,10 +91,9 @@ def _versus_reference(
 ) -> dict[str, object]:
     from runner.scoring.significance import compare_with_reference
 
-    both = ~r.failed & ~ref.failed
+    both = _shared_tasks(r, ref, rank_by)
     score = r.scores[rank_by].per_task
     ref_score = ref.scores[rank_by].per_task
-    both &= ~np.isnan(score) & ~np.isnan(ref_score)
     if not both.any():
         return {"win_share": np.nan, "dm_better": np.nan, "dm_worse": np.nan,
                 "wilcoxon_p": np.nan, "significant": False}
@@ -66,6 +103,17 @@ def _versus_reference(
     )
     return {"win_share": c.win_share, "dm_better": c.dm_better, "dm_worse": c.dm_worse,
             "wilcoxon_p": c.wilcoxon_p, "significant": bool(c.significant)}
+
+
+def _origin_spacing(ev: Evaluation, dp: DatasetPlan) -> int:
+    """Steps between successive origins, which sets how many test blocks overlap.
+
+    ``step`` for origins that follow a rule; for a list of origins, its closest two.
+    """
+    w = ev.plan.config.windows
+    if w.origins is not None and len(dp.origins) > 1:
+        return int(np.diff(dp.origins).min())
+    return w.step or ev.plan.config.horizon
 
 
 def build_leaderboard(ev: Evaluation) -> pd.DataFrame:
@@ -86,30 +134,24 @@ def build_leaderboard(ev: Evaluation) -> pd.DataFrame:
                 "kind": r.spec.kind,
                 "role": r.spec.role,
                 "series": int(len(np.unique(dp.series[ok]))),
-                "folds": int(len(np.unique(dp.fold_group[ok]))),
+                "folds": int(len(np.unique(dp.origin[ok]))),
                 "tasks": int(ok.sum()),
                 "failed": int(r.failed.sum()),
+                "complete": not bool(r.failed.any()),
             }
             for col in cols:
-                mean, sd = _fold_mean_sd(r.scores[col].per_task, dp.fold_group)
+                mean, sd = _fold_mean_sd(r.scores[col].per_task, dp.origin)
                 row[f"{col}_mean"], row[f"{col}_sd"] = mean, sd
             block.append(row)
-        ref_row = next(b for b in block if b["forecaster"] == dp.reference)
-        ref_value = ref_row[f"{rank_by}_mean"]
-        better = M.info(rank_by).better
         for row, r in zip(block, dr.results):
-            value = row[f"{rank_by}_mean"]
-            with np.errstate(divide="ignore", invalid="ignore"):
-                rel = (abs(value) / abs(ref_value)) if better == "abs" else value / ref_value
-            row[f"{rank_by}_rel"] = float(rel) if np.isfinite(rel) else np.nan
+            rel = _relative(r, ref, dp.origin, rank_by)
+            row[f"{rank_by}_rel"] = rel
             if r is ref:
                 row.update(win_share=np.nan, dm_better=np.nan, dm_worse=np.nan,
                            wilcoxon_p=np.nan)
                 row["beats_reference"] = False
                 continue
-            vs = _versus_reference(
-                r, ref, dr, rank_by, cfg.horizon, cfg.windows.step or cfg.horizon
-            )
+            vs = _versus_reference(r, ref, dr, rank_by, cfg.horizon, _origin_spacing(ev, dp))
             significant = vs.pop("significant")
             row.update(vs)
             row["beats_reference"] = bool(
@@ -119,11 +161,13 @@ def build_leaderboard(ev: Evaluation) -> pd.DataFrame:
             np.array([b[f"{rank_by}_mean"] for b in block], dtype=float),
             [str(b["forecaster"]) for b in block],
             rank_by,
+            np.array([b["complete"] for b in block], dtype=bool),
         )
         for b, rank in zip(block, ranks):
             b["rank"] = int(rank)
         rows.extend(sorted(block, key=lambda b: b["rank"]))
-    head = ["dataset", "rank", "forecaster", "kind", "role", "series", "folds", "tasks", "failed"]
+    head = ["dataset", "rank", "forecaster", "kind", "role", "series", "folds", "tasks", "failed",
+            "complete"]
     metric_cols = [f"{c}_{s}" for c in cols for s in ("mean", "sd")]
     tail = [f"{rank_by}_rel", "win_share", "dm_better", "dm_worse", "wilcoxon_p",
             "beats_reference"]
@@ -164,7 +208,7 @@ def to_markdown(board: pd.DataFrame, rank_by: str, metrics: list[str]) -> str:
     out = []
     for dataset, block in board.groupby("dataset", sort=False):
         out.append(f"## {dataset}\n")
-        head = ["rank", "forecaster", "role", "series", "folds", "failed"]
+        head = ["rank", "forecaster", "role", "series", "folds", "failed", "complete"]
         marks = {c: (c + " †" if c.split("_")[0] in M.UNRELIABLE else c) for c in metric_cols}
         header = head + [marks[c] for c in metric_cols] + [f"{rank_by} vs reference",
                                                              "beats reference"]
@@ -183,6 +227,10 @@ def to_markdown(board: pd.DataFrame, rank_by: str, metrics: list[str]) -> str:
     notes = ["Scores are the mean ± standard deviation over folds of each fold's mean."]
     notes += [f"† {m}: unreliable for comparing forecasts ({M.UNRELIABLE[m]})." for m in flagged]
     failed = board[board["failed"] > 0]
+    if len(failed):
+        notes.append("A forecaster with failed tasks (complete: false) ranks below every "
+                     f"complete one; its {rank_by} vs reference and significance are on the "
+                     "tasks both it and the reference completed.")
     for _, r in failed.iterrows():
         notes.append(
             f"{r['forecaster']} on {r['dataset']}: {r['failed']} failed task(s); scored on "
@@ -201,13 +249,13 @@ def to_terminal(board: pd.DataFrame, rank_by: str) -> str:
         lines.append(f"{dataset}")
         lines.append(
             f"  {'rank':>4}  {'forecaster':<{width}}  {'role':<9}  {rank_by:>10}  "
-            f"{'± sd':>9}  {'vs ref':>7}  {'beats':>5}  {'failed':>6}"
+            f"{'± sd':>9}  {'vs ref':>7}  {'beats':>5}  {'failed':>6}  {'complete':>8}"
         )
         for _, r in block.iterrows():
             lines.append(
                 f"  {r['rank']:>4}  {r['forecaster']:<{width}}  {r['role']:<9}  "
                 f"{_fmt(r[f'{rank_by}_mean']):>10}  {_fmt(r[f'{rank_by}_sd']):>9}  "
                 f"{_fmt(r[f'{rank_by}_rel']):>7}  {'yes' if r['beats_reference'] else '':>5}  "
-                f"{r['failed']:>6}"
+                f"{r['failed']:>6}  {'yes' if r['complete'] else 'NO':>8}"
             )
     return "\n".join(lines)

@@ -9,20 +9,34 @@ import numpy as np
 
 from runner.config import Config, ForecasterSpec, load_config
 from runner.data import Panel, load_panel
-from runner.errors import DataError
-from runner.windows.folds import Scheme, fold_bounds
+from runner.errors import ConfigError, DataError
+from runner.windows.axis import TimeAxis, time_axis
+from runner.windows.folds import (
+    Scheme,
+    anchored_origins,
+    bounds_at,
+    fold_bounds,
+    usable_origins,
+)
 
 
 @dataclass
 class DatasetPlan:
-    """The folds of one dataset: one row per (series, fold), indices into ``panel.values``."""
+    """The folds of one dataset: one row per (series, fold), indices into ``panel.values``.
+
+    Tasks are ordered by series, then chronologically. ``origin`` is each task's origin as a
+    position on the dataset's time axis (the position of its last training observation), and
+    ``fold`` numbers the dataset's origins from the oldest (0), so fold k is the same origin,
+    the same calendar period, for every series.
+    """
 
     panel: Panel
     forecasters: list[int]  # indices into Plan.forecasters that apply to this dataset
     reference: str
     series: np.ndarray  # series index of each task
-    fold: np.ndarray  # 0-based chronological fold number within its series
-    fold_group: np.ndarray  # fold counted so that folds at the same position align across series
+    fold: np.ndarray  # index of the task's origin in ``origins``
+    origin: np.ndarray  # the task's origin: a position on the dataset's time axis
+    origins: np.ndarray  # the dataset's origins (sorted positions) that some series uses
     starts: np.ndarray
     ends: np.ndarray
     test_starts: np.ndarray
@@ -32,6 +46,15 @@ class DatasetPlan:
     def n_tasks(self) -> int:
         """(series, fold) pairs of this dataset."""
         return len(self.starts)
+
+    def origin_labels(self) -> np.ndarray:
+        """Each of the dataset's origins as the time of its last training observation (text).
+
+        Formatted like every other time of the panel (:meth:`Panel.format_time`), so a fold is
+        named the same way in every output.
+        """
+        _, first_task = np.unique(self.fold, return_index=True)
+        return self.panel.format_time(self.ends[first_task] - 1)
 
 
 @dataclass
@@ -49,11 +72,11 @@ class Plan:
         return sum(d.n_tasks * len(d.forecasters) for d in self.datasets)
 
 
-def _scheme(cfg: Config, n: int) -> Scheme:
+def _scheme(cfg: Config, span: int) -> Scheme:
     w = cfg.windows
     return Scheme(
         kind=w.scheme,
-        train=w.train_length(n),
+        train=w.train_length(span),
         horizon=cfg.horizon,
         step=w.step or cfg.horizon,
         gap=w.gap,
@@ -77,7 +100,7 @@ def _reference(cfg: Config, specs: list[ForecasterSpec], season: int, source: st
 def plan_dataset(
     cfg: Config, panel: Panel, specs: list[ForecasterSpec], source: str
 ) -> DatasetPlan:
-    """The folds of every series of ``panel`` long enough for the window scheme."""
+    """The folds of every series of ``panel`` that has data for at least one origin."""
     season = panel.season
     applicable = [
         i
@@ -85,49 +108,140 @@ def plan_dataset(
         if not (s.default and s.seasonal_only and season <= 1)
     ]
     reference = _reference(cfg, [specs[i] for i in applicable], season, source)
-    parts: list[np.ndarray] = []
-    series_idx: list[np.ndarray] = []
-    skipped: list[str] = []
-    lengths = np.diff(panel.offsets)
-    for i, n in enumerate(lengths):
-        scheme = _scheme(cfg, int(n))
-        bounds = fold_bounds(int(n), scheme)
-        if len(bounds) == 0:
-            skipped.append(
-                f"series {panel.keys[i]!r} has {n} observations, needs at least "
-                f"{scheme.min_length} (train {scheme.train} + gap {scheme.gap} + "
-                f"horizon {scheme.horizon})"
-            )
-            continue
-        parts.append(bounds + panel.offsets[i])
-        series_idx.append(np.full(len(bounds), i, dtype=np.int64))
-    if not parts:
-        first = skipped[0] if skipped else "it has no series"
+    axis = time_axis(panel)
+    scheme = _scheme(cfg, axis.span)
+    first = axis.positions[panel.offsets[:-1]]
+    last = axis.positions[panel.offsets[1:] - 1]
+    if scheme.align == "end":
+        series, origin = _origins_from_series_ends(panel, first, scheme)
+    else:
+        series, origin = _shared_origins(cfg, panel, axis, first, last, scheme, source)
+    if not len(series):
+        first_skip = (_too_short(panel, axis, first, last, scheme, [0])[0]
+                      if panel.n_series else "it has no series")
         raise DataError(
-            f"{panel.path}: dataset {panel.name!r}: no series is long enough for the windows; "
-            f"{first}"
+            f"{panel.path}: dataset {panel.name!r}: no series has data for any origin; "
+            f"{first_skip}"
         )
-    bounds = np.concatenate(parts)
-    series = np.concatenate(series_idx)
-    # fold numbers: chronological within a series, and aligned across series at the end the
-    # scheme anchors (the latest folds line up with align=end, the earliest with align=start)
-    change = np.r_[True, series[1:] != series[:-1]]
-    first_of_series = np.maximum.accumulate(np.where(change, np.arange(len(series)), 0))
-    fold = np.arange(len(series)) - first_of_series
-    counts = np.bincount(series, minlength=len(lengths))[series]
-    fold_group = fold - counts if cfg.windows.align == "end" else fold
+    unused = np.setdiff1d(np.arange(panel.n_series), series)
+    skipped = _too_short(panel, axis, first, last, scheme, unused)
+    origins = np.unique(origin)
+    bounds = bounds_at(origin, first[series], scheme) + panel.offsets[series][:, None]
     return DatasetPlan(
         panel=panel,
         forecasters=applicable,
         reference=reference,
         series=series,
-        fold=fold,
-        fold_group=fold_group,
+        fold=np.searchsorted(origins, origin).astype(np.int64),
+        origin=origin,
+        origins=origins,
         starts=bounds[:, 0],
         ends=bounds[:, 1],
         test_starts=bounds[:, 2],
         skipped=skipped,
     )
+
+
+def _origins_from_series_ends(
+    panel: Panel, first: np.ndarray, scheme: Scheme
+) -> tuple[np.ndarray, np.ndarray]:
+    """``align: end``: each series' own origins, counted back from its last observation."""
+    series_idx: list[np.ndarray] = []
+    origin: list[np.ndarray] = []
+    for i, n in enumerate(np.diff(panel.offsets)):
+        bounds = fold_bounds(int(n), scheme)
+        series_idx.append(np.full(len(bounds), i, dtype=np.int64))
+        origin.append(first[i] + bounds[:, 1] - 1)
+    if not series_idx:
+        return np.empty(0, np.int64), np.empty(0, np.int64)
+    return np.concatenate(series_idx), np.concatenate(origin).astype(np.int64)
+
+
+def _shared_origins(
+    cfg: Config, panel: Panel, axis: TimeAxis, first: np.ndarray, last: np.ndarray,
+    scheme: Scheme, source: str,
+) -> tuple[np.ndarray, np.ndarray]:
+    """Origins on the dataset's time axis, and for each series the ones it has data for."""
+    w = cfg.windows
+    where = f"{source}: windows"
+    if w.origins is not None:
+        origins = np.array(sorted(_position(axis, t, panel, f"{where}.origins") for t in w.origins),
+                           dtype=np.int64)
+    elif w.first_origin is not None:
+        start = _position(axis, w.first_origin, panel, f"{where}.first_origin")
+        origins = anchored_origins(axis.span, scheme, first=start)
+        if not len(origins):
+            raise ConfigError(
+                f"{where}.first_origin: {w.first_origin} leaves no full test block in dataset "
+                f"{panel.name!r} (gap {scheme.gap} + horizon {scheme.horizon} after it; its "
+                f"last time is {axis.time_text(axis.span - 1)})"
+            )
+    else:
+        origins = anchored_origins(axis.span, scheme)
+    lo, hi = usable_origins(origins, first, last, scheme)
+    # which origins some series has data for (a difference array over origin indices)
+    cover = np.zeros(len(origins) + 1, dtype=np.int64)
+    np.add.at(cover, lo, 1)
+    np.add.at(cover, hi, -1)
+    used = np.cumsum(cover[:-1]) > 0
+    if w.origins is not None or w.first_origin is not None:
+        if not used[0] or (w.origins is not None and not used.all()):
+            bad = int(np.argmin(used))
+            field_name = "origins" if w.origins is not None else "first_origin"
+            raise ConfigError(
+                f"{where}.{field_name}: no series of dataset {panel.name!r} has data for origin "
+                f"{axis.time_text(int(origins[bad]))} (it needs train {scheme.train} "
+                f"observations up to the origin and gap {scheme.gap} + horizon "
+                f"{scheme.horizon} after it; the dataset's times run from "
+                f"{axis.time_text(0)} to {axis.time_text(axis.span - 1)})"
+            )
+    origins = origins[used]
+    if scheme.folds is not None:
+        origins = origins[-scheme.folds :]
+    lo, hi = usable_origins(origins, first, last, scheme)
+    counts = hi - lo
+    series = np.repeat(np.arange(panel.n_series, dtype=np.int64), counts)
+    within = np.arange(int(counts.sum()), dtype=np.int64) - np.repeat(np.cumsum(counts) - counts,
+                                                                      counts)
+    return series, origins[np.repeat(lo, counts) + within]
+
+
+def _position(axis: TimeAxis, value: int | str, panel: Panel, where: str) -> int:
+    try:
+        pos = axis.position_of(value)
+    except ValueError as exc:
+        raise ConfigError(f"{where}: {value}: {exc} (dataset {panel.name!r})") from None
+    if pos is None:
+        freq = f"frequency {panel.frequency}" if panel.frequency else f"step {panel.step}"
+        raise ConfigError(
+            f"{where}: {value} is not a time of dataset {panel.name!r} ({freq}, times from "
+            f"{axis.time_text(0)} to {axis.time_text(axis.span - 1)})"
+        )
+    return pos
+
+
+def _too_short(
+    panel: Panel, axis: TimeAxis, first: np.ndarray, last: np.ndarray, scheme: Scheme,
+    which: np.ndarray | list[int],
+) -> list[str]:
+    """Why each series in ``which`` got no fold, one line each."""
+    out = []
+    for i in which:
+        n = int(panel.offsets[i + 1] - panel.offsets[i])
+        times = f"{axis.time_text(int(first[i]))} to {axis.time_text(int(last[i]))}"
+        if n < scheme.min_length:
+            out.append(
+                f"series {panel.keys[i]!r} has {n} observations, needs at least "
+                f"{scheme.min_length} (train {scheme.train} + gap {scheme.gap} + "
+                f"horizon {scheme.horizon}; its times run from {times})"
+            )
+        else:
+            out.append(
+                f"series {panel.keys[i]!r} ({n} observations, {times}) has no origin of the "
+                f"dataset with train {scheme.train} observations up to it and gap "
+                f"{scheme.gap} + horizon {scheme.horizon} after it"
+            )
+    return out
 
 
 def build_plan(
