@@ -45,27 +45,20 @@ def output_dir(cfg: Config, override: str | Path | None = None) -> Path:
 
 
 def scores_frame(ev: Evaluation) -> pd.DataFrame:
-    """One row per dataset, series, forecaster and fold with every metric column.
+    """One row per dataset, series, forecaster and fold with every metric column: the table
+    written as scores.parquet (:func:`runner.output.writer.scores_table`), as a DataFrame.
 
     ``fold`` numbers the dataset's origins from the oldest; ``origin`` is the time of the
     fold's last training observation, the same for every series.
     """
-    frames = []
-    for dr in ev.datasets:
-        dp = dr.plan
-        origins = dp.panel.format_time(dp.ends - 1)
-        for r in dr.results:
-            frame = pd.DataFrame({
-                "dataset": dp.panel.name,
-                "series": [dp.panel.keys[i] for i in dp.series],
-                "forecaster": r.spec.name,
-                "fold": dp.fold,
-                "origin": origins,
-            })
-            for col, sc in r.scores.items():
-                frame[col] = sc.per_task
-            frames.append(frame)
-    return pd.concat(frames, ignore_index=True)
+    from runner.output.writer import scores_table
+    from runner.scoring.metrics import columns
+
+    cfg = ev.plan.config
+    frame = scores_table(ev, columns(cfg.metrics, tuple(cfg.intervals))).to_pandas()
+    for name in ("dataset", "series", "forecaster"):
+        frame[name] = frame[name].astype(str)
+    return frame
 
 
 def prepare(config: str | Path | Config, config_path: Path | None = None) -> Plan:

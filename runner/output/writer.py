@@ -28,11 +28,13 @@ from runner.windows.plan import DatasetPlan
 
 
 def _dict_array(codes: np.ndarray, labels: list[str]):
+    """A dictionary-encoded text column. Labels are made unique first (two datasets may name
+    their series alike), since readers refuse a dictionary with repeated values."""
     import pyarrow as pa
 
-    return pa.DictionaryArray.from_arrays(
-        pa.array(np.asarray(codes, dtype=np.int32)), pa.array(labels, type=pa.string())
-    )
+    unique, first_of = np.unique(np.asarray(labels, dtype=object).astype(str), return_inverse=True)
+    codes = first_of[np.asarray(codes, dtype=np.int64)].astype(np.int32)
+    return pa.DictionaryArray.from_arrays(pa.array(codes), pa.array(unique, type=pa.string()))
 
 
 def _versions() -> dict[str, str]:
@@ -99,7 +101,12 @@ def manifest(ev: Evaluation) -> dict[str, Any]:
     }
 
 
-def _scores_table(ev: Evaluation, cols: list[str]):
+def scores_table(ev: Evaluation, cols: list[str]) -> Any:
+    """scores.parquet as an Arrow table: one row per dataset, series, forecaster and fold.
+
+    ``fold`` numbers the dataset's origins from the oldest; ``origin`` is the time of the
+    fold's last training observation (see :func:`time_array`).
+    """
     import pyarrow as pa
 
     names = [s.name for s in ev.plan.forecasters]
@@ -111,14 +118,13 @@ def _scores_table(ev: Evaluation, cols: list[str]):
         dp, panel = dr.plan, dr.plan.panel
         offset = len(keys)
         keys.extend(panel.keys)
-        origin_labels = panel.format_time(dp.ends - 1)
         for r in dr.results:
             n = dp.n_tasks
             parts["d"].append(np.full(n, d))
             parts["s"].append(dp.series + offset)
             parts["f"].append(np.full(n, names.index(r.spec.name)))
             parts["fold"].append(dp.fold)
-            parts["origin"].append(origin_labels)
+            parts["origin"].append(dp.ends - 1)
             for c in cols:
                 metric_parts[c].append(r.scores[c].per_task)
     cat = {k: np.concatenate(v) if v else np.empty(0) for k, v in parts.items()}
@@ -127,11 +133,35 @@ def _scores_table(ev: Evaluation, cols: list[str]):
         "series": _dict_array(cat["s"], keys),
         "forecaster": _dict_array(cat["f"], names),
         "fold": pa.array(cat["fold"].astype(np.int32)),
-        "origin": pa.array(np.asarray(cat["origin"], dtype=object).astype(str)),
+        "origin": time_array(ev, cat["d"], cat["origin"]),
     }
     for c in cols:
         data[c] = pa.array(np.concatenate(metric_parts[c]).astype(float))
     return pa.table(data)
+
+
+def time_array(ev: Evaluation, dataset: np.ndarray, position: np.ndarray) -> Any:
+    """Times of rows (dataset index, flat position in its panel) as an Arrow column.
+
+    Timestamps when every dataset has dates, integers when every dataset has integer times,
+    so readers get real times; text (as every other output prints them) when a run mixes both.
+    """
+    import pyarrow as pa
+
+    panels = [dr.plan.panel for dr in ev.datasets]
+    kinds = {p.times.dtype.kind for p in panels}
+    if kinds <= {"M"} or kinds <= {"i"}:
+        dtype = "datetime64[ns]" if kinds == {"M"} else np.int64
+        out = np.empty(len(position), dtype=dtype)
+        for d, panel in enumerate(panels):
+            rows = dataset == d
+            out[rows] = panel.times[position[rows]]
+        return pa.array(out)
+    text = np.empty(len(position), dtype=object)
+    for d, panel in enumerate(panels):
+        rows = dataset == d
+        text[rows] = panel.format_time(position[rows])
+    return pa.array(text.astype(str))
 
 
 def _forecasts_table(ev: Evaluation):
@@ -143,8 +173,6 @@ def _forecasts_table(ev: Evaluation):
     names = [s.name for s in ev.plan.forecasters]
     ds_names = [dr.plan.panel.name for dr in ev.datasets]
     keys: list[str] = []
-    times: list[np.ndarray] = []
-    time_offset = 0
     cols: dict[str, list[np.ndarray]] = {
         k: [] for k in ("d", "s", "f", "fold", "origin", "step", "t")
     }
@@ -158,11 +186,9 @@ def _forecasts_table(ev: Evaluation):
         dp, panel = dr.plan, dr.plan.panel
         s_offset = len(keys)
         keys.extend(panel.keys)
-        times.append(panel.format_time(np.arange(len(panel.values))))
-        t_index = (dp.test_starts[:, None] + steps[None, :]).ravel() + time_offset
-        # the origin is the time of the last training observation, a time of the same table
-        origin_index = np.repeat(dp.ends - 1, h) + time_offset
-        time_offset += len(panel.values)
+        t_index = (dp.test_starts[:, None] + steps[None, :]).ravel()
+        # the origin is the time of the last training observation
+        origin_index = np.repeat(dp.ends - 1, h)
         for r in dr.results:
             n = dp.n_tasks
             cols["d"].append(np.full(n * h, d))
@@ -178,15 +204,14 @@ def _forecasts_table(ev: Evaluation):
                 values[lo].append(r.lower[i].ravel())
                 values[hi].append(r.upper[i].ravel())
     cat = {k: np.concatenate(v) for k, v in cols.items()}
-    all_times = np.concatenate(times).astype(str).tolist()
     data = {
         "dataset": _dict_array(cat["d"], ds_names),
         "series": _dict_array(cat["s"], keys),
         "forecaster": _dict_array(cat["f"], names),
         "fold": pa.array(cat["fold"].astype(np.int32)),
-        "origin": _dict_array(cat["origin"], all_times),
+        "origin": time_array(ev, cat["d"], cat["origin"]),
         "step": pa.array(cat["step"].astype(np.int32)),
-        "time": _dict_array(cat["t"], all_times),
+        "time": time_array(ev, cat["d"], cat["t"]),
     }
     for k, v in values.items():
         data[k] = pa.array(np.concatenate(v).astype(float))
@@ -258,7 +283,7 @@ def write_results(
         (tmp / "manifest.json").write_text(
             json.dumps(man, indent=2, sort_keys=True) + "\n", encoding="utf-8"
         )
-        pq.write_table(_scores_table(ev, cols), tmp / "scores.parquet")
+        pq.write_table(scores_table(ev, cols), tmp / "scores.parquet")
         pq.write_table(_forecasts_table(ev), tmp / "forecasts.parquet")
         _csv(_horizon_frame(ev, cols), tmp / "horizon.csv")
         _csv(_failures_frame(ev), tmp / "failures.csv")
