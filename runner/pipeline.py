@@ -70,17 +70,31 @@ def prepare(config: str | Path | Config, config_path: Path | None = None) -> Pla
     from runner.config import load_config
     from runner.forecasters.specs import forecaster_specs
     from runner.forecasters.validation import validate_forecasters
-    from runner.scoring.metrics import DEFAULT_METRICS, check_metrics
+    from runner.scoring.metrics import DEFAULT_METRICS, check_metrics, unreliable_rank_warning
 
     if isinstance(config, (str, Path)):
         config_path = Path(config)
         config = load_config(config_path)
     config_path = config_path or Path("config.yaml")
-    check_metrics(config.metrics, config.rank_by, bool(config.intervals), str(config_path))
-    if config.metrics is None:
-        config = config.model_copy(update={"metrics": list(DEFAULT_METRICS)})
-    validate_forecasters(config, config_path)
-    return build_plan(config, forecaster_specs(config), config_path)
+    rank_by, note = check_metrics(
+        config.metrics, config.rank_by, bool(config.intervals), str(config_path)
+    )
+    notes = [note] if note else []
+    # defaults are written into the config the run records, so the manifest's config (and its
+    # hash) says exactly what ran
+    config = config.model_copy(update={
+        "metrics": list(DEFAULT_METRICS) if config.metrics is None else config.metrics,
+        "rank_by": rank_by,
+    })
+    dropped = validate_forecasters(config, config_path)
+    notes.extend(dropped.values())
+    specs = [s for s in forecaster_specs(config) if s.name not in dropped]
+    plan = build_plan(config, specs, config_path)
+    plan.notes.extend(notes)
+    warning = unreliable_rank_warning(rank_by)
+    if warning is not None:
+        plan.warnings.append(warning)
+    return plan
 
 
 def run(

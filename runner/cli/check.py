@@ -21,6 +21,10 @@ def main(args: argparse.Namespace) -> int:
     cfg = plan.config
     print(f"experiment {cfg.experiment}: horizon {cfg.horizon}, {cfg.windows.scheme} windows, "
           f"ranked by {cfg.rank_by}")
+    for note in plan.all_notes():
+        print(f"note: {note}")
+    for warning in plan.warnings:
+        print(f"warning: {warning}")
     for dp in plan.datasets:
         p = dp.panel
         folds = np.bincount(dp.series, minlength=p.n_series)[np.unique(dp.series)]

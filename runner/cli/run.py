@@ -31,6 +31,10 @@ def main(args: argparse.Namespace) -> int:
     t0 = time.perf_counter()
     plan = prepare(args.config)
     if not args.quiet:
+        for note in plan.all_notes():
+            print(f"castgrid: note: {note}", file=sys.stderr)
+        for warning in plan.warnings:
+            print(f"castgrid: warning: {warning}", file=sys.stderr)
         for dp in plan.datasets:
             for note in dp.panel.notes:
                 print(f"castgrid: note: {dp.panel.name}: {note}", file=sys.stderr)

@@ -20,6 +20,8 @@ from pydantic import (
     model_validator,
 )
 
+from runner.errors import brief
+
 #: Names an earlier castgrid release accepted, and the names that replaced them. A config that
 #: still uses one gets a one-line error naming the new name, never a silent fallback.
 RENAMED_KINDS = {"window_average": "moving_average", "auto_arima": "arima_search"}
@@ -37,12 +39,15 @@ _NAME = re.compile(r"^[A-Za-z0-9][A-Za-z0-9._-]*$")
 def _simple_name(v: str) -> str:
     """Names end up in folder names and table cells: keep them to a safe alphabet."""
     if not _NAME.match(v):
-        raise ValueError(f"expected letters, digits, '.', '_' or '-', got {json.dumps(v)}")
+        raise ValueError(f"expected letters, digits, '.', '_' or '-', got {brief(v)}")
     return v
 
 
 class _Strict(BaseModel):
-    model_config = ConfigDict(extra="forbid", frozen=True)
+    # strict: YAML already gives every value its type, so a value of another type is a mistake
+    # to report, not to convert (`horizon: yes` is true, not 1; `horizon: "12"` is text).
+    # Floats still accept integers (`fit_timeout: 60`).
+    model_config = ConfigDict(extra="forbid", frozen=True, strict=True)
 
 
 class DatasetConfig(_Strict):
@@ -118,14 +123,14 @@ class WindowsConfig(_Strict):
     @classmethod
     def _train_count_or_share(cls, v: Any) -> int | str:
         if isinstance(v, bool):
-            raise ValueError(f'expected a count >= 1 or a share like "50%", got {json.dumps(v)}')
+            raise ValueError(f'expected a count >= 1 or a share like "50%", got {brief(v)}')
         if isinstance(v, int) and v >= 1:
             return v
         if isinstance(v, str):
             m = _SHARE.match(v)
             if m and 0 < float(m.group(1)) < 100:
                 return f"{float(m.group(1)):g}%"
-        raise ValueError(f'expected a count >= 1 or a share like "50%", got {json.dumps(v)}')
+        raise ValueError(f'expected a count >= 1 or a share like "50%", got {brief(v)}')
 
     @field_validator("first_origin", mode="before")
     @classmethod
@@ -212,7 +217,7 @@ class ExecutionConfig(_Strict):
     engine: Literal["local", "dask"] = "local"
     address: str | None = None
     cache: str | Literal[False] = "results/.cache"
-    fit_timeout: float = Field(default=120.0, gt=0)
+    fit_timeout: float = Field(default=120.0, gt=0, allow_inf_nan=False)
     on_error: Literal["record", "stop"] = "record"
 
     @field_validator("jobs")
@@ -223,8 +228,8 @@ class ExecutionConfig(_Strict):
     @field_validator("cache", mode="before")
     @classmethod
     def _cache_path_or_false(cls, v: Any) -> Any:
-        if v is True:
-            raise ValueError("expected a folder path or false, got true")
+        if not (v is False or isinstance(v, str)):
+            raise ValueError(f"expected a folder path or false, got {brief(v)}")
         return v
 
 
@@ -266,7 +271,7 @@ class ModelConfig(_Strict):
     def _grid_lists_not_empty(cls, v: dict[str, list[Any]]) -> dict[str, list[Any]]:
         for key, values in v.items():
             if not values:
-                raise ValueError(f"grid key {key!r}: expected a non-empty list of values")
+                raise ValueError(f"grid key {brief(key)}: expected a non-empty list of values")
         return v
 
     @model_validator(mode="after")
@@ -276,7 +281,7 @@ class ModelConfig(_Strict):
         if self.kind != "plugin" and self.entry:
             raise ValueError(f"entry is only for kind plugin, not {self.kind}")
         if self.entry and not re.match(r"^[\w.]+:[\w.]+$", self.entry):
-            raise ValueError(f'entry: expected "module:attribute", got {self.entry!r}')
+            raise ValueError(f'entry: expected "module:attribute", got {brief(self.entry)}')
         for key in list(self.params) + list(self.grid):
             new = RENAMED_PARAMS.get(self.kind, {}).get(key)
             if new is not None:
@@ -284,7 +289,7 @@ class ModelConfig(_Strict):
                 raise ValueError(f"{where}.{key} of {self.kind} is now called {new!r}")
         overlap = sorted(set(self.params) & set(self.grid))
         if overlap:
-            raise ValueError(f"{overlap[0]!r} is in both params and grid; keep one")
+            raise ValueError(f"{brief(overlap[0])} is in both params and grid; keep one")
         return self
 
 
@@ -308,7 +313,9 @@ class Config(_Strict):
     models: list[ModelConfig] = Field(default_factory=list)
     #: None: the metric table's defaults (filled in by :func:`runner.pipeline.prepare`).
     metrics: list[str] | None = None
-    rank_by: str = "mase"
+    #: None: mase if listed, else the first listed metric that can rank (resolved by
+    #: :func:`runner.pipeline.prepare`, which says so in a note).
+    rank_by: str | None = None
     reference: str | None = None
     intervals: list[float] = Field(default_factory=list)
     execution: ExecutionConfig = Field(default_factory=ExecutionConfig)
@@ -325,18 +332,23 @@ class Config(_Strict):
         if v is None:
             return None
         if not isinstance(v, list):
-            raise ValueError(f"expected a list of baseline names, got {json.dumps(v)}")
+            raise ValueError(f"expected a list of baseline names, got {brief(v)}")
         out = []
         for item in v:
             if isinstance(item, str):
                 kind, params = item, {}
             elif isinstance(item, dict) and len(item) == 1:
                 kind, params = next(iter(item.items()))
-                params = params or {}
+                # `- naive:` (no value) is read as null; any other non-mapping is a mistake
+                params = {} if params is None else params
                 if not isinstance(params, dict):
-                    raise ValueError(f"{kind}: expected a mapping of parameters, got {params!r}")
+                    raise ValueError(
+                        f"{brief(kind)}: expected a mapping of parameters, got {brief(params)}"
+                    )
             else:
-                raise ValueError(f"expected a baseline name or {{name: {{params}}}}, got {item!r}")
+                raise ValueError(
+                    f"expected a baseline name or {{name: {{params}}}}, got {brief(item)}"
+                )
             if kind in RENAMED_KINDS:
                 raise ValueError(f"baseline {kind!r} is now called {RENAMED_KINDS[kind]!r}")
             out.append({"kind": kind, "params": params})
@@ -368,8 +380,15 @@ class Config(_Strict):
     @classmethod
     def _levels_in_range(cls, v: list[float]) -> list[float]:
         for level in v:
-            if not 0 < level < 100:
-                raise ValueError(f"expected interval levels between 0 and 100, got {level:g}")
+            if 0 < level < 1:
+                # 0.8 is an 80% interval written as a fraction; read literally it is a 0.8%
+                # interval whose coverage is near 0, which no one means
+                raise ValueError(
+                    f"levels are percentages between 1 and 100; {level:g} looks like a "
+                    f"fraction: write {level * 100:g}"
+                )
+            if not 1 <= level < 100:
+                raise ValueError(f"expected interval levels between 1 and 100, got {level:g}")
         if len(set(v)) != len(v):
             raise ValueError("an interval level is listed twice")
         return sorted(float(x) for x in v)
@@ -379,7 +398,7 @@ class Config(_Strict):
         names = [d.name for d in self.datasets]
         dup = sorted({n for n in names if names.count(n) > 1})
         if dup:
-            raise ValueError(f"datasets: name {dup[0]!r} is used twice")
+            raise ValueError(f"datasets: name {brief(dup[0])} is used twice")
         return self
 
     def dataset_season(self, dataset: DatasetConfig) -> int | None:

@@ -14,7 +14,7 @@ from functools import cache
 from typing import Any
 
 from runner.config import ForecasterSpec
-from runner.errors import PluginError
+from runner.errors import PluginError, brief, clip
 
 
 @dataclass(frozen=True)
@@ -93,7 +93,8 @@ def load_entry(entry: str) -> Any:
         module = importlib.import_module(module_name)
     except Exception as exc:  # any import-time failure of user code is the plugin's problem
         raise PluginError(
-            f"entry {entry}: cannot import module {module_name!r} ({type(exc).__name__}: {exc})"
+            f"entry {entry}: cannot import module {module_name!r} "
+            f"({type(exc).__name__}: {clip(str(exc))})"
         ) from None
     obj: Any = module
     for part in attr.split("."):
@@ -114,7 +115,9 @@ def build(spec: ForecasterSpec) -> Any:
     try:
         return factory(**spec.params)
     except (TypeError, ValueError) as exc:
-        raise PluginError(f"forecaster {spec.name}: bad params {spec.params} ({exc})") from None
+        raise PluginError(
+            f"forecaster {clip(spec.name)}: bad params {brief(spec.params)} ({clip(str(exc))})"
+        ) from None
 
 
 def implementation_version(spec: ForecasterSpec) -> str:

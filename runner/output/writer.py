@@ -94,6 +94,10 @@ def manifest(ev: Evaluation) -> dict[str, Any]:
         "rank_by": cfg.rank_by,
         "metrics": cfg.metrics,
         "reference": {dr.plan.panel.name: dr.plan.reference for dr in ev.datasets},
+        # where a default gave way to the config (rank metric, reference, dropped grid
+        # combinations) and choices that may mislead: the same lines the run printed
+        "notes": ev.plan.all_notes(),
+        "warnings": list(ev.plan.warnings),
         "forecasters": [
             {"name": s.name, "kind": s.kind, "role": s.role, "identity": identity(s)}
             for s in ev.plan.forecasters

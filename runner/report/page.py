@@ -41,6 +41,7 @@ from runner.output.reader import (
     read_manifest,
     read_table,
 )
+from runner.scoring.metrics import FLAG, flag_note
 
 if TYPE_CHECKING:
     import pandas as pd
@@ -400,6 +401,18 @@ def _cell(rec: dict[str, Any], column: str) -> str:
     return _fmt(rec.get(column))
 
 
+def _flag_mark(column: str) -> str:
+    """The unreliable-metric mark after a metric column's heading (as in leaderboard.md)."""
+    if column.endswith(("_mean", "_sd", "_rel")) and flag_note(column):
+        return f" {FLAG}"
+    return ""
+
+
+def _flag_title(column: str) -> str:
+    note = flag_note(column) if column.endswith(("_mean", "_sd", "_rel")) else None
+    return f' title="{html.escape(note)}"' if note else ""
+
+
 def _board_html(ctx: _Context) -> str:
     m = ctx.rank_by
     # the rank metric and its significance first, so the columns that decide are in view
@@ -414,8 +427,9 @@ def _board_html(ctx: _Context) -> str:
              "win_share": "win share", "dm_better": "DM better", "dm_worse": "DM worse",
              "wilcoxon_p": "Wilcoxon p"}
     head = "".join(
-        f'<th class="{"key" if c == f"{m}_mean" else ""}">'
-        f"{html.escape(heads.get(c, c.removesuffix('_mean')))}</th>" for c in cols
+        f'<th class="{"key" if c == f"{m}_mean" else ""}"{_flag_title(c)}>'
+        f"{html.escape(heads.get(c, c.removesuffix('_mean')))}{_flag_mark(c)}</th>"
+        for c in cols
     )
     body = []
     for rec in ctx.board.to_dict("records"):
@@ -507,12 +521,15 @@ def _page(manifest: dict[str, Any], sections: list[str], failures_html: str) -> 
     versions = manifest.get("versions") or {}
     version_text = ", ".join(f"{k} {v}" for k, v in versions.items())
     title = f"castgrid report: {manifest['experiment']}"
+    metrics = manifest.get("metrics") or []
+    flags = [n for n in (flag_note(str(m)) for m in metrics) if n]
+    rank_mark = f" {FLAG}" if flag_note(str(manifest["rank_by"])) else ""
     head = [
         f"<h1>{html.escape(title)}</h1>",
         f'<p class="meta">{html.escape(desc)}</p>' if desc else "",
         '<p class="meta">config <code>'
         f"{html.escape(str(manifest['config_hash'])[:12])}</code> &middot; rank metric "
-        f"<code>{html.escape(manifest['rank_by'])}</code>"
+        f"<code>{html.escape(manifest['rank_by'])}</code>{rank_mark}"
         + (f" &middot; tasks: {html.escape(task_text)}" if task_text else "") + "</p>",
         f'<p class="meta">{html.escape(version_text)}</p>' if version_text else "",
         '<p class="note">Lower is better for error metrics. <i>rel</i> is the rank metric '
@@ -524,6 +541,7 @@ def _page(manifest: dict[str, Any], sections: list[str], failures_html: str) -> 
         "failed tasks. A forecaster with failed tasks (<i>complete</i>: no) ranks below every "
         "complete one; its rel and significance are on the tasks both it and the reference "
         "completed.</p>",
+        *(f'<p class="note flag">{html.escape(note)}</p>' for note in flags),
     ]
     return (
         '<!DOCTYPE html>\n<html lang="en"><head><meta charset="utf-8">'

@@ -241,14 +241,20 @@ def to_markdown(board: pd.DataFrame, rank_by: str, metrics: list[str]) -> str:
 
 
 def to_terminal(board: pd.DataFrame, rank_by: str) -> str:
-    """A compact fixed-width table for the terminal."""
+    """A compact fixed-width table for the terminal.
+
+    Metrics flagged as unreliable (:data:`runner.scoring.metrics.UNRELIABLE`) are marked as in
+    leaderboard.md: the rank column when it is one, and a footnote for each flagged metric the
+    board holds (shown in leaderboard.md), so the flag is seen where people read the result.
+    """
     lines = []
+    shown = f"{rank_by} {M.FLAG}" if rank_by in M.UNRELIABLE else rank_by
     for dataset, block in board.groupby("dataset", sort=False):
         names = [str(n) for n in block["forecaster"]]
         width = max(10, *(len(n) for n in names))
         lines.append(f"{dataset}")
         lines.append(
-            f"  {'rank':>4}  {'forecaster':<{width}}  {'role':<9}  {rank_by:>10}  "
+            f"  {'rank':>4}  {'forecaster':<{width}}  {'role':<9}  {shown:>10}  "
             f"{'± sd':>9}  {'vs ref':>7}  {'beats':>5}  {'failed':>6}  {'complete':>8}"
         )
         for _, r in block.iterrows():
@@ -258,4 +264,7 @@ def to_terminal(board: pd.DataFrame, rank_by: str) -> str:
                 f"{_fmt(r[f'{rank_by}_rel']):>7}  {'yes' if r['beats_reference'] else '':>5}  "
                 f"{r['failed']:>6}  {'yes' if r['complete'] else 'NO':>8}"
             )
+    columns = [c.removesuffix("_mean") for c in board.columns if c.endswith("_mean")]
+    flagged = dict.fromkeys(c.partition("_")[0] for c in columns if M.flag_note(c))
+    lines.extend(str(M.flag_note(m)) for m in flagged)
     return "\n".join(lines)

@@ -8,7 +8,7 @@ from pathlib import Path
 import numpy as np
 
 from runner.config import Config, ForecasterSpec, load_config
-from runner.data import Panel, load_panel
+from runner.data import Panel, load_panel, season_for_frequency
 from runner.errors import ConfigError, DataError
 from runner.windows.axis import TimeAxis, time_axis
 from runner.windows.folds import (
@@ -41,6 +41,8 @@ class DatasetPlan:
     ends: np.ndarray
     test_starts: np.ndarray
     skipped: list[str] = field(default_factory=list)
+    #: what castgrid chose for this dataset where a default gave way (the reference)
+    notes: list[str] = field(default_factory=list)
 
     @property
     def n_tasks(self) -> int:
@@ -65,6 +67,15 @@ class Plan:
     config_path: Path
     forecasters: list[ForecasterSpec]
     datasets: list[DatasetPlan]
+    #: what castgrid chose where a default gave way to what the config says (rank metric,
+    #: dropped grid combinations); shown as notes and kept in the manifest
+    notes: list[str] = field(default_factory=list)
+    #: choices the config made that may mislead (ranking by a metric flagged as unreliable)
+    warnings: list[str] = field(default_factory=list)
+
+    def all_notes(self) -> list[str]:
+        """The run's notes, then each dataset's (prefixed with the dataset's name)."""
+        return self.notes + [f"{d.panel.name}: {n}" for d in self.datasets for n in d.notes]
 
     @property
     def n_tasks(self) -> int:
@@ -85,16 +96,26 @@ def _scheme(cfg: Config, span: int) -> Scheme:
     )
 
 
-def _reference(cfg: Config, specs: list[ForecasterSpec], season: int, source: str) -> str:
+def _reference(cfg: Config, specs: list[ForecasterSpec], season: int) -> tuple[str, str | None]:
+    """The reference baseline of a dataset, and a note when the default gave way.
+
+    A ``reference`` the config sets is used as is (checked by
+    :func:`runner.forecasters.specs.check_specs`). Otherwise the default, seasonal naive when
+    the season is above 1 and naive otherwise, is used when it is among the baselines; else the
+    first listed baseline that suits the season (a seasonal one only when the season is above
+    1), else the first listed baseline. ``specs`` hold at least one baseline (check_specs
+    rejects an empty list).
+    """
     if cfg.reference is not None:
-        return cfg.reference
+        return cfg.reference, None
     wanted = "seasonal_naive" if season > 1 else "naive"
-    if not any(s.name == wanted and s.role == "baseline" for s in specs):
-        raise DataError(
-            f"{source}: reference: the default reference {wanted!r} is not among the baselines; "
-            "add it or set reference"
-        )
-    return wanted
+    baselines = [s for s in specs if s.role == "baseline"]
+    if any(s.name == wanted for s in baselines):
+        return wanted, None
+    suited = [s for s in baselines if season > 1 or not s.seasonal_only] or baselines
+    chosen = suited[0].name
+    return chosen, (f"reference: {chosen} (the default {wanted} is not among the baselines; "
+                    "the first listed baseline)")
 
 
 def plan_dataset(
@@ -107,7 +128,7 @@ def plan_dataset(
         for i, s in enumerate(specs)
         if not (s.default and s.seasonal_only and season <= 1)
     ]
-    reference = _reference(cfg, [specs[i] for i in applicable], season, source)
+    reference, note = _reference(cfg, [specs[i] for i in applicable], season)
     axis = time_axis(panel)
     scheme = _scheme(cfg, axis.span)
     first = axis.positions[panel.offsets[:-1]]
@@ -139,6 +160,7 @@ def plan_dataset(
         ends=bounds[:, 1],
         test_starts=bounds[:, 2],
         skipped=skipped,
+        notes=[note] if note else [],
     )
 
 
@@ -259,7 +281,28 @@ def build_plan(
         config_path = config_path or Path("config.yaml")
     base = config_path.parent
     plans = []
-    for ds in cfg.datasets:
+    for i, ds in enumerate(cfg.datasets):
         panel = load_panel(ds, base, cfg.season)
+        _check_season(cfg, i, panel, str(config_path))
         plans.append(plan_dataset(cfg, panel, specs, str(config_path)))
     return Plan(cfg, config_path, specs, plans)
+
+
+def _check_season(cfg: Config, i: int, panel: Panel, source: str) -> None:
+    """A top-level ``season`` must agree with the season a dataset's frequency gives.
+
+    The top-level season is the default of datasets that set none; a quarterly dataset under a
+    top-level ``season: 12`` would otherwise be evaluated with a 12-quarter season without a
+    word. The dataset's own ``season`` settles it either way.
+    """
+    ds = cfg.datasets[i]
+    if ds.season is not None or cfg.season is None or panel.frequency is None:
+        return
+    derived = season_for_frequency(panel.frequency)
+    if derived is not None and derived != cfg.season:
+        raise ConfigError(
+            f"{source}: datasets[{i}].season: the top-level season {cfg.season} disagrees with "
+            f"the frequency {panel.frequency} of dataset {ds.name!r}, whose season is {derived}; "
+            f"set season on the dataset ({derived} for the frequency's cycle, or {cfg.season} "
+            "to keep the top-level one)"
+        )
