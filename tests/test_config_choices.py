@@ -275,13 +275,28 @@ MINIMAL = {"experiment": "readme", "horizon": 6, "season": 12,
            "windows": {"train": 48}}
 
 
+def _as_editor_reads(value):
+    """YAML 1.1 (PyYAML) reads an unquoted 2022-06-01 as a date; YAML 1.2, which editors'
+    schema checkers speak, reads it as text, and so does castgrid's config (a time of the
+    dataset). Validate what an editor sees."""
+    import datetime
+
+    if isinstance(value, dict):
+        return {k: _as_editor_reads(v) for k, v in value.items()}
+    if isinstance(value, list):
+        return [_as_editor_reads(v) for v in value]
+    if isinstance(value, (datetime.date, datetime.datetime)):
+        return value.isoformat()
+    return value
+
+
 def _documents() -> dict[str, dict]:
     docs = {}
     for path in sorted([*REPO.glob("configs/*.yaml"), *REPO.glob("examples/**/*.yaml")]):
-        docs[str(path.relative_to(REPO))] = yaml.safe_load(path.read_text())
+        docs[str(path.relative_to(REPO))] = _as_editor_reads(yaml.safe_load(path.read_text()))
     readme = (REPO / "README.md").read_text()
     for i, block in enumerate(re.findall(r"```yaml\n(.*?)```", readme, re.S)):
-        data = yaml.safe_load(block)
+        data = _as_editor_reads(yaml.safe_load(block))
         assert isinstance(data, dict), f"README yaml block {i} is not a mapping"
         # fragments are wrapped into a minimal config: their keys replace the minimal ones
         docs[f"README.md yaml block {i}"] = data if "experiment" in data else {**MINIMAL, **data}

@@ -116,6 +116,26 @@ def _origin_spacing(ev: Evaluation, dp: DatasetPlan) -> int:
     return w.step or ev.plan.config.horizon
 
 
+def _summaries(column: str) -> tuple[str, ...]:
+    """The leaderboard columns of a metric: mean and sd over folds, and for a root metric
+    (RMSE, RMSSE) also the pooled figure."""
+    if M.metric_of(column).reduction == "root_mean":
+        return ("mean", "sd", "pooled")
+    return ("mean", "sd")
+
+
+def _pooled_root(per_task: np.ndarray) -> float:
+    """The root of the mean square over every scored (task, step): sqrt(mean(per_task ** 2)).
+
+    Each task's root metric is the root of the mean over its ``horizon`` steps, so the mean of
+    the squared task scores is the mean over all steps, as a cross-validated RMSE is pooled
+    (Hyndman & Athanasopoulos, FPP2 section 3.4). With horizon 1 a task's RMSE is its absolute
+    error, and only this pooled figure is an RMSE of the run.
+    """
+    done = per_task[np.isfinite(per_task)]
+    return float(np.sqrt(np.mean(done**2))) if done.size else float("nan")
+
+
 def build_leaderboard(ev: Evaluation) -> pd.DataFrame:
     """The leaderboard as a DataFrame in its fixed row and column order."""
     cfg = ev.plan.config
@@ -142,6 +162,8 @@ def build_leaderboard(ev: Evaluation) -> pd.DataFrame:
             for col in cols:
                 mean, sd = _fold_mean_sd(r.scores[col].per_task, dp.origin)
                 row[f"{col}_mean"], row[f"{col}_sd"] = mean, sd
+                if M.metric_of(col).reduction == "root_mean":
+                    row[f"{col}_pooled"] = _pooled_root(r.scores[col].per_task)
             block.append(row)
         for row, r in zip(block, dr.results):
             rel = _relative(r, ref, dp.origin, rank_by)
@@ -168,7 +190,7 @@ def build_leaderboard(ev: Evaluation) -> pd.DataFrame:
         rows.extend(sorted(block, key=lambda b: b["rank"]))
     head = ["dataset", "rank", "forecaster", "kind", "role", "series", "folds", "tasks", "failed",
             "complete"]
-    metric_cols = [f"{c}_{s}" for c in cols for s in ("mean", "sd")]
+    metric_cols = [f"{c}_{s}" for c in cols for s in _summaries(c)]
     tail = [f"{rank_by}_rel", "win_share", "dm_better", "dm_worse", "wilcoxon_p",
             "beats_reference"]
     return pd.DataFrame(rows, columns=head + metric_cols + tail)
