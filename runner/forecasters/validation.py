@@ -4,7 +4,8 @@
 a misspelt entry, a class without ``predict`` or a bad parameter value is one clear line naming
 the config file and the field, not a thousand failed tasks. What can only be known while
 running (a wrong output shape, NaN forecasts) is recorded per task by
-:func:`runner.execution.tasks.run_model_task`, naming the forecaster.
+:func:`runner.execution.tasks.run_model_task`, naming the forecaster. Derived candidates
+(:mod:`runner.forecasters.derived`) are never built: the forecasters they name are checked.
 """
 
 from __future__ import annotations
@@ -18,7 +19,8 @@ from typing import Any
 from runner.config import Config, ForecasterSpec
 from runner.errors import ConfigError, PluginError
 from runner.forecasters.contract import protocol_problem
-from runner.forecasters.registry import entry_of, load_entry
+from runner.forecasters.derived import derived_problem
+from runner.forecasters.registry import entry_of, is_derived, load_entry
 from runner.forecasters.specs import baseline_specs, candidate_specs, check_specs
 
 
@@ -62,7 +64,8 @@ def validate_forecasters(cfg: Config, config_path: str | Path) -> None:
     """
     src = str(config_path)
     check_specs(cfg, src)
-    for spec, loc, source in _locations(cfg):
+    located = _locations(cfg)
+    for spec, loc, source in located:
         entry = entry_of(spec)
         field = f"{loc}.entry" if spec.kind == "plugin" else f"{loc} ({spec.kind})"
         try:
@@ -80,6 +83,13 @@ def validate_forecasters(cfg: Config, config_path: str | Path) -> None:
                     f"{src}: {loc}.{where}.{unknown[0]}: unknown parameter of {spec.kind} "
                     f"{spec.name} (expected {expected})"
                 )
+        if is_derived(spec):
+            # nothing to build: its forecasts come from other forecasters of the run
+            problem = derived_problem(spec, [s for s, _, _ in located])
+            if problem is not None:
+                param, msg = problem
+                raise ConfigError(f"{src}: {loc}.{source.get(param, 'params')}.{param}: {msg}")
+            continue
         try:
             obj = factory(**spec.params)
         except (TypeError, ValueError) as exc:
