@@ -21,6 +21,7 @@ def main(args: argparse.Namespace) -> int:
     from runner.config.model import check_jobs
     from runner.errors import ConfigError
     from runner.pipeline import prepare, run
+    from runner.scoring.derived import selection_frame, selection_lines
     from runner.scoring.leaderboard import to_terminal
 
     if args.jobs is not None:
@@ -45,6 +46,8 @@ def main(args: argparse.Namespace) -> int:
     )
     cfg = plan.config
     print(to_terminal(result.leaderboard, cfg.rank_by))
+    for line in selection_lines(selection_frame(result.evaluation)):
+        print(line)
     tasks = result.manifest["tasks"]
     if not args.quiet:
         print(

@@ -24,6 +24,9 @@ class Kind:
     ``role`` is ``baseline`` (a benchmark, listed under ``baselines:``) or ``candidate`` (a model,
     listed under ``models:``). ``default`` benchmarks run when a config lists no baselines;
     ``seasonal_only`` ones need a season above 1 and are left out of the defaults otherwise.
+    ``derived`` candidates make no forecast of their own: their forecasts are computed from
+    other forecasters' forecasts of the same run (:mod:`runner.forecasters.derived`), so no
+    model task is built for them and they have no ``fit`` / ``predict``.
     """
 
     name: str
@@ -32,11 +35,13 @@ class Kind:
     summary: str
     default: bool = False
     seasonal_only: bool = False
+    derived: bool = False
 
 
 _B = "runner.forecasters.benchmarks"
 _M = "runner.forecasters.models"
 _I = "runner.forecasters.intermittent"
+_D = "runner.forecasters.derived"
 
 #: Every built-in kind. The config's kinds, the JSON Schema's enumerations, the default baseline
 #: list and the conformance tests all derive from this table.
@@ -64,6 +69,12 @@ KINDS: tuple[Kind, ...] = (
     Kind("theta", f"{_M}.theta:Theta", "candidate", "the theta method"),
     Kind("arima_search", f"{_M}.arima_search:ArimaSearch", "candidate",
          "ARIMA with orders chosen by a stepwise search per training window"),
+    Kind("combination", f"{_D}:Combination", "candidate",
+         "the mean or median of listed forecasters' forecasts of the same run (no refit)",
+         derived=True),
+    Kind("best_so_far", f"{_D}:BestSoFar", "candidate",
+         "per series, the listed forecaster that scored best at earlier folds only",
+         derived=True),
 )
 BY_KIND: dict[str, Kind] = {k.name: k for k in KINDS}
 #: ``kind`` -> ``module:attribute`` of every built-in.
@@ -75,6 +86,12 @@ PLUGIN = "plugin"
 def kinds_for(role: str) -> list[str]:
     """Names of the built-in kinds of ``role`` (``baseline`` or ``candidate``)."""
     return [k.name for k in KINDS if k.role == role]
+
+
+def is_derived(spec: ForecasterSpec) -> bool:
+    """True for candidates whose forecasts are computed from other forecasters' forecasts."""
+    kind = BY_KIND.get(spec.kind)
+    return kind is not None and kind.derived
 
 
 def entry_of(spec: ForecasterSpec) -> str:

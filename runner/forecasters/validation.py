@@ -4,7 +4,8 @@
 a misspelt entry, a class without ``predict`` or a bad parameter value is one clear line naming
 the config file and the field, not a thousand failed tasks. What can only be known while
 running (a wrong output shape, NaN forecasts) is recorded per task by
-:func:`runner.execution.tasks.run_model_task`, naming the forecaster.
+:func:`runner.execution.tasks.run_model_task`, naming the forecaster. Derived candidates
+(:mod:`runner.forecasters.derived`) are never built: the forecasters they name are checked.
 """
 
 from __future__ import annotations
@@ -19,7 +20,8 @@ from typing import Any
 from runner.config import Config, ForecasterSpec, ModelConfig
 from runner.errors import ConfigError, PluginError, clip
 from runner.forecasters.contract import protocol_problem
-from runner.forecasters.registry import entry_of, load_entry
+from runner.forecasters.derived import derived_problem
+from runner.forecasters.registry import entry_of, is_derived, load_entry
 from runner.forecasters.specs import baseline_specs, candidate_specs, check_specs
 
 
@@ -71,7 +73,8 @@ def _plugin_folder_importable(cfg: Config, config_path: str | Path) -> None:
 
 
 def _build(
-    src: str, spec: ForecasterSpec, loc: str, source: dict[str, str]
+    src: str, spec: ForecasterSpec, loc: str, source: dict[str, str],
+    run_specs: list[ForecasterSpec],
 ) -> tuple[Any, ConfigError | None]:
     """Load and build ``spec``: (the object, None), or (None, the ConfigError its params give).
 
@@ -95,6 +98,13 @@ def _build(
                 f"{src}: {loc}.{where}.{clip(unknown[0], 40)}: unknown parameter of {spec.kind} "
                 f"{clip(spec.name, 80)} (expected {expected})"
             )
+    if is_derived(spec):
+        # nothing to build: its forecasts come from other forecasters of the run
+        problem = derived_problem(spec, run_specs)
+        if problem is not None:
+            param, msg = problem
+            raise ConfigError(f"{src}: {loc}.{source.get(param, 'params')}.{param}: {msg}")
+        return None, None
     try:
         obj = factory(**spec.params)
     except (TypeError, ValueError) as exc:
@@ -154,8 +164,10 @@ def validate_forecasters(cfg: Config, config_path: str | Path) -> dict[str, str]
     _plugin_folder_importable(cfg, config_path)
     dropped: dict[str, str] = {}
     by_entry: dict[str, list[tuple[ForecasterSpec, ConfigError | None]]] = {}
-    for spec, loc, source in _locations(cfg):
-        _, error = _build(src, spec, loc, source)
+    located = _locations(cfg)
+    run_specs = [spec for spec, _, _ in located]
+    for spec, loc, source in located:
+        _, error = _build(src, spec, loc, source, run_specs)
         if error is not None and not (loc.startswith("models[") and "grid" in source.values()):
             raise error
         by_entry.setdefault(loc, []).append((spec, error))

@@ -22,6 +22,7 @@ from runner.config import canonical_json, config_hash
 from runner.forecasters.registry import identity
 from runner.output.reader import interval_columns
 from runner.scoring import metrics as M
+from runner.scoring.derived import selection_frame
 from runner.scoring.evaluate import Evaluation
 from runner.scoring.leaderboard import to_csv_text, to_markdown
 from runner.windows.plan import DatasetPlan
@@ -291,6 +292,9 @@ def write_results(
         pq.write_table(_forecasts_table(ev), tmp / "forecasts.parquet")
         _csv(_horizon_frame(ev, cols), tmp / "horizon.csv")
         _csv(_failures_frame(ev), tmp / "failures.csv")
+        selection = selection_frame(ev)
+        if selection is not None:  # only runs with a best_so_far candidate have one
+            _csv(selection, tmp / "selection.csv")
         old_history = out_dir / "history.jsonl"
         if old_history.exists():
             shutil.copy2(old_history, tmp / "history.jsonl")

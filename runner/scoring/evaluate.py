@@ -14,6 +14,7 @@ from runner.execution.tasks import ModelTask
 from runner.forecasters.registry import build, is_vectorised
 from runner.forecasters.slices import SliceSummary, summarise
 from runner.scoring import metrics as M
+from runner.scoring.derived import add_derived
 from runner.windows.plan import DatasetPlan, Plan
 
 
@@ -137,6 +138,8 @@ def evaluate(
             per_dataset[d][f] = ForecasterResult(
                 plan.forecasters[f], point, lower, upper, reason, message, info=info
             )
+
+    add_derived(plan, summaries, per_dataset)  # combinations, selections: from the forecasts
 
     # Scores: computed from the forecasts at every run, so a new metric never refits.
     cols = M.columns(cfg.metrics, levels)
