@@ -20,9 +20,9 @@ def main(args: argparse.Namespace) -> int:
     """Exit 0 when every task succeeded, 3 when some failed (2 on bad input, raised)."""
     from runner.config.model import check_jobs
     from runner.errors import ConfigError
+    from runner.output.tables import to_terminal
     from runner.pipeline import prepare, run
     from runner.scoring.derived import selection_frame, selection_lines
-    from runner.scoring.leaderboard import to_terminal
 
     if args.jobs is not None:
         try:

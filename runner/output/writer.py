@@ -21,10 +21,10 @@ from runner import __version__
 from runner.config import canonical_json, config_hash
 from runner.forecasters.registry import identity
 from runner.output.reader import interval_columns
+from runner.output.tables import to_csv_text, to_markdown
 from runner.scoring import metrics as M
 from runner.scoring.derived import selection_frame
 from runner.scoring.evaluate import Evaluation
-from runner.scoring.leaderboard import to_csv_text, to_markdown
 from runner.windows.plan import DatasetPlan
 
 

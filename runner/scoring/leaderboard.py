@@ -23,7 +23,6 @@ from runner.scoring.evaluate import DatasetResult, Evaluation, ForecasterResult
 from runner.windows.plan import DatasetPlan
 
 #: Float format of every number written to leaderboard.csv (fixed, so reruns are byte-equal).
-FLOAT_FORMAT = ".6g"
 
 
 def _fold_mean_sd(values: np.ndarray, groups: np.ndarray) -> tuple[float, float]:
@@ -194,99 +193,3 @@ def build_leaderboard(ev: Evaluation) -> pd.DataFrame:
     tail = [f"{rank_by}_rel", "win_share", "dm_better", "dm_worse", "wilcoxon_p",
             "beats_reference"]
     return pd.DataFrame(rows, columns=head + metric_cols + tail)
-
-
-def _fmt(v: object) -> str:
-    if isinstance(v, (bool, np.bool_)):
-        return "true" if v else "false"
-    if isinstance(v, (int, np.integer)):
-        return str(int(v))
-    if isinstance(v, (float, np.floating)):
-        if np.isnan(v):
-            return ""
-        if float(v).is_integer() and abs(v) < 1e15:
-            return str(int(v))
-        return format(float(v), FLOAT_FORMAT)
-    return str(v)
-
-
-def to_csv_text(board: pd.DataFrame) -> str:
-    """The leaderboard as CSV text with fixed formatting (the byte-identical guarantee)."""
-    lines = [",".join(board.columns)]
-    for row in board.itertuples(index=False):
-        cells = []
-        for v in row:
-            s = _fmt(v)
-            if any(ch in s for ch in ',"\n'):
-                s = '"' + s.replace('"', '""') + '"'
-            cells.append(s)
-        lines.append(",".join(cells))
-    return "\n".join(lines) + "\n"
-
-
-def to_markdown(board: pd.DataFrame, rank_by: str, metrics: list[str]) -> str:
-    """The leaderboard as Markdown tables (one per dataset) for reading and review comments."""
-    metric_cols = [c[: -len("_mean")] for c in board.columns if c.endswith("_mean")]
-    out = []
-    for dataset, block in board.groupby("dataset", sort=False):
-        out.append(f"## {dataset}\n")
-        head = ["rank", "forecaster", "role", "series", "folds", "failed", "complete"]
-        marks = {c: (c + " †" if c.split("_")[0] in M.UNRELIABLE else c) for c in metric_cols}
-        header = head + [marks[c] for c in metric_cols] + [f"{rank_by} vs reference",
-                                                             "beats reference"]
-        out.append("| " + " | ".join(header) + " |")
-        out.append("|" + "|".join("---" for _ in header) + "|")
-        for _, r in block.iterrows():
-            cells = [_fmt(r[h]) for h in head]
-            for c in metric_cols:
-                mean, sd = _fmt(r[f"{c}_mean"]), _fmt(r[f"{c}_sd"])
-                cells.append(f"{mean} ± {sd}" if sd else mean)
-            cells.append(_fmt(r[f"{rank_by}_rel"]))
-            cells.append("yes" if r["beats_reference"] else "")
-            out.append("| " + " | ".join(cells) + " |")
-        out.append("")
-    flagged = [m for m in metrics if m in M.UNRELIABLE]
-    notes = ["Scores are the mean ± standard deviation over folds of each fold's mean."]
-    notes += [f"† {m}: unreliable for comparing forecasts ({M.UNRELIABLE[m]})." for m in flagged]
-    failed = board[board["failed"] > 0]
-    if len(failed):
-        notes.append("A forecaster with failed tasks (complete: false) ranks below every "
-                     f"complete one; its {rank_by} vs reference and significance are on the "
-                     "tasks both it and the reference completed.")
-    for _, r in failed.iterrows():
-        notes.append(
-            f"{r['forecaster']} on {r['dataset']}: {r['failed']} failed task(s); scored on "
-            f"the {r['tasks']} that completed (see failures.csv)."
-        )
-    out.extend(notes)
-    return "\n".join(out) + "\n"
-
-
-def to_terminal(board: pd.DataFrame, rank_by: str) -> str:
-    """A compact fixed-width table for the terminal.
-
-    Metrics flagged as unreliable (:data:`runner.scoring.metrics.UNRELIABLE`) are marked as in
-    leaderboard.md: the rank column when it is one, and a footnote for each flagged metric the
-    board holds (shown in leaderboard.md), so the flag is seen where people read the result.
-    """
-    lines = []
-    shown = f"{rank_by} {M.FLAG}" if rank_by in M.UNRELIABLE else rank_by
-    for dataset, block in board.groupby("dataset", sort=False):
-        names = [str(n) for n in block["forecaster"]]
-        width = max(10, *(len(n) for n in names))
-        lines.append(f"{dataset}")
-        lines.append(
-            f"  {'rank':>4}  {'forecaster':<{width}}  {'role':<9}  {shown:>10}  "
-            f"{'± sd':>9}  {'vs ref':>7}  {'beats':>5}  {'failed':>6}  {'complete':>8}"
-        )
-        for _, r in block.iterrows():
-            lines.append(
-                f"  {r['rank']:>4}  {r['forecaster']:<{width}}  {r['role']:<9}  "
-                f"{_fmt(r[f'{rank_by}_mean']):>10}  {_fmt(r[f'{rank_by}_sd']):>9}  "
-                f"{_fmt(r[f'{rank_by}_rel']):>7}  {'yes' if r['beats_reference'] else '':>5}  "
-                f"{r['failed']:>6}  {'yes' if r['complete'] else 'NO':>8}"
-            )
-    columns = [c.removesuffix("_mean") for c in board.columns if c.endswith("_mean")]
-    flagged = dict.fromkeys(c.partition("_")[0] for c in columns if M.flag_note(c))
-    lines.extend(str(M.flag_note(m)) for m in flagged)
-    return "\n".join(lines)
