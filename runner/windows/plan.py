@@ -145,7 +145,7 @@ def build_plan(
         config_path = config_path or Path("config.yaml")
     base = config_path.parent
     plans = []
-    for ds in cfg.datasets:
-        panel = load_panel(ds, base, cfg.season)
+    for i, ds in enumerate(cfg.datasets):
+        panel = load_panel(ds, base, cfg.season, entry=f"{config_path}: datasets[{i}]")
         plans.append(plan_dataset(cfg, panel, specs, str(config_path)))
     return Plan(cfg, config_path, specs, plans)
