@@ -14,6 +14,7 @@ def main(args: argparse.Namespace) -> int:
     """Print datasets, series, folds per series, forecasters, tasks and how many are cached."""
     import numpy as np
 
+    from runner.cli._summary import summarise
     from runner.pipeline import prepare
 
     plan = prepare(args.config)
@@ -34,9 +35,9 @@ def main(args: argparse.Namespace) -> int:
             f"  folds per series: {folds.min()}-{folds.max()}; {used} series evaluated, "
             f"{len(dp.skipped)} too short"
         )
-        for s in dp.skipped:
+        for s in summarise(dp.skipped):
             print(f"  too short: {s}")
-        for note in p.notes:
+        for note in summarise(p.notes):
             print(f"  note: {note}")
         names = [plan.forecasters[i].name for i in dp.forecasters]
         print(f"  forecasters ({len(names)}): {', '.join(names)}; reference {dp.reference}")
