@@ -17,6 +17,7 @@ import argparse
 import errno
 import importlib
 import os
+import re
 import sys
 from collections.abc import Sequence
 
@@ -86,14 +87,14 @@ def main(argv: Sequence[str] | None = None) -> int:
     except CastgridError as exc:
         if args.debug:
             raise
-        print(f"castgrid: error: {exc}", file=sys.stderr)
+        print(f"castgrid: error: {_one_line(str(exc))}", file=sys.stderr)
         return 2
     except OSError as exc:
         if args.debug:
             raise
         if exc.errno not in ENVIRONMENT_ERRNOS:
             return _internal_error(exc)
-        print(f"castgrid: error: {_describe_os_error(exc)}", file=sys.stderr)
+        print(f"castgrid: error: {_one_line(_describe_os_error(exc))}", file=sys.stderr)
         return 2
     except KeyboardInterrupt:
         print("castgrid: interrupted", file=sys.stderr)
@@ -106,10 +107,21 @@ def main(argv: Sequence[str] | None = None) -> int:
 
 def _internal_error(exc: BaseException) -> int:
     print(
-        f"castgrid: internal error: {type(exc).__name__}: {exc} (rerun with --debug)",
+        f"castgrid: internal error: {type(exc).__name__}: {_one_line(str(exc))} "
+        "(rerun with --debug)",
         file=sys.stderr,
     )
     return 1
+
+
+#: Control characters and line separators other than "\n": a terminal would act on them, or
+#: a reader split the message there. (A config error may list a few problems, one a line.)
+_LINE_BREAKING = re.compile("[\x00-\x09\x0b-\x1f\x7f-\x9f\u2028\u2029]")
+
+
+def _one_line(text: str) -> str:
+    """A message as it is meant to be read: stray control characters shown escaped."""
+    return _LINE_BREAKING.sub(lambda m: repr(m.group(0))[1:-1], text)
 
 
 def _describe_os_error(exc: OSError) -> str:

@@ -75,6 +75,7 @@ _SEASONS: tuple[tuple[type, int], ...] = (
 )
 _YEARLY = (poff.YearBegin, poff.YearEnd, poff.BYearBegin, poff.BYearEnd)
 _DAY_NS = 86_400 * 10**9
+_INT_TIME_LIMIT = 2.0**62
 #: How many series a fill notice lists by name before summing up the rest.
 _NOTE_LIMIT = 10
 _FINGERPRINT_VERSION = b"castgrid-panel-1\0"
@@ -248,7 +249,8 @@ class _Rows:
         return _time_text(t, self.is_date)
 
 
-_CONTROL = re.compile(r"[\x00-\x1f\x7f]")
+#: Characters that break a line, or that a terminal would act on: shown escaped in messages.
+_CONTROL = re.compile("[\x00-\x1f\x7f-\x9f\u2028\u2029]")
 
 
 def _escape(m: re.Match) -> str:
@@ -337,6 +339,10 @@ def _header(path: Path, kind: str) -> list[str]:
     return []
 
 
+#: pyarrow's message for a row with the wrong number of fields.
+_RAGGED = re.compile(r"Expected (\d+) columns, got (\d+)")
+
+
 def _read_csv(
     path: Path, needed: list[str], ds: DatasetConfig, width: int, src: _Source
 ) -> Any:
@@ -349,18 +355,11 @@ def _read_csv(
     import pyarrow as pa
     import pyarrow.csv as pcsv
 
-    ragged: list = []
-
-    def on_ragged(row: Any) -> str:  # a pyarrow InvalidRow
-        ragged.append(row)
-        return "error"
-
     try:
         return pcsv.read_csv(
             path,
-            parse_options=pcsv.ParseOptions(
-                newlines_in_values=True, invalid_row_handler=on_ragged
-            ),
+            # Quoted values may hold line breaks, as RFC 4180 allows.
+            parse_options=pcsv.ParseOptions(newlines_in_values=True),
             convert_options=pcsv.ConvertOptions(
                 include_columns=needed,
                 column_types={c: pa.string() for c in ds.series_columns},
@@ -370,19 +369,22 @@ def _read_csv(
                 strings_can_be_null=False,
             ),
         )
-    except pa.ArrowInvalid:
-        if ragged:
-            raise _ragged_row(path, width, ragged[0], src) from None
-        raise
+    except pa.ArrowInvalid as exc:
+        # Not an invalid_row_handler: pyarrow decodes the row's text before calling it, and a
+        # row that is not UTF-8 would print a stray traceback from inside pyarrow.
+        m = _RAGGED.search(str(exc))
+        if m is None:
+            raise
+        raise _ragged_row(path, width, int(m.group(2)), src) from None
 
 
-def _ragged_row(path: Path, width: int, row: Any, src: _Source) -> DataError:
+def _ragged_row(path: Path, width: int, found: int, src: _Source) -> DataError:
     """The error for a row whose field count differs from the header's, naming its line.
 
     pyarrow reports the row but (reading in parallel) not where it is; a scan with Python's
     csv module finds the first such line. It only runs on this error path.
     """
-    line, found, text = None, row.actual_columns, row.text
+    line, text = None, ""
     try:
         with _open_text(path) as fh:
             reader = csv.reader(fh)
@@ -395,14 +397,11 @@ def _ragged_row(path: Path, width: int, row: Any, src: _Source) -> DataError:
                 elif len(record) != width:
                     line, found, text = reader.line_num, len(record), ",".join(record)
                     break
-    except (csv.Error, OSError, UnicodeDecodeError):
+    except (csv.Error, OSError, UnicodeDecodeError, EOFError):
         pass
-    where = f"line {line}" if line is not None else "a row"
+    where = f'line {line} ("{_shown(text)}")' if line is not None else "a row"
     hint = "; quote values that contain commas" if found > width else ""
-    return src.fail(
-        f'{where}: expected {width} fields as in the header, found {found} ("{_shown(text)}")'
-        f"{hint}"
-    )
+    return src.fail(f"{where}: expected {width} fields as in the header, found {found}{hint}")
 
 
 def _type_problem(t: Any, role: str) -> str | None:
@@ -598,17 +597,18 @@ def _parse_times(col: pd.Series, name: str, src: _Source) -> tuple[np.ndarray, b
     dtype = col.dtype
     if pd.api.types.is_bool_dtype(dtype):
         raise src.fail(f'column "{name}": expected dates or whole numbers, found true/false')
-    if pd.api.types.is_integer_dtype(dtype):
-        return col.to_numpy(dtype=np.int64), False
-    if pd.api.types.is_float_dtype(dtype):
+    if pd.api.types.is_integer_dtype(dtype) or pd.api.types.is_float_dtype(dtype):
+        # Whole numbers within +-2**62, so that differences of two times fit in int64.
         x = col.to_numpy(dtype=np.float64)
-        frac = x != np.round(x)
-        if frac.any():
-            i = int(np.argmax(frac))
+        bad = ~np.isfinite(x) | (x != np.round(x)) | (np.abs(x) > _INT_TIME_LIMIT)
+        if bad.any():
+            i = int(np.argmax(bad))
+            limit = " (at most 18 digits)" if np.abs(x[i]) > _INT_TIME_LIMIT else ""
             raise src.fail(
-                f'column "{name}": expected dates or whole numbers, found {x[i]} (row {i + 1})'
+                f'column "{name}": expected dates or whole numbers{limit}, found {col.iloc[i]} '
+                f"(row {i + 1})"
             )
-        return x.astype(np.int64), False
+        return col.to_numpy(dtype=np.int64), False
     if pd.api.types.is_datetime64_any_dtype(dtype):
         idx = pd.DatetimeIndex(col)
     else:
