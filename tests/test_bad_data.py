@@ -296,7 +296,7 @@ BATTERY = [
     case("duplicate-time-two-keys", {"d.csv": "r,s,t,y\n" + "".join(
         f"n,{k},{t},1\n" for k in (1, 2) for t in range(1, 21)) + "n,2,7,1\n"},
         {"series": ["r", "s"]}, ("d.csv", 'series "n/2"', "duplicate time 7")),
-    case("empty-series-name", {"d.csv": CSV.replace("b,4,", ",4,")}, None,
+    case("key-empty-series-name", {"d.csv": CSV.replace("b,4,", ",4,")}, None,
          ("d.csv", 'column "id"', "empty series name")),
     # --- gaps and missing values, under each missing policy
     case("gap-policy-error", {"d.csv": _drop_line(CSV, 8)}, None,
@@ -305,9 +305,9 @@ BATTERY = [
          {"covariates": ["p"], "missing": "interpolate"}, ("d.csv", 'series "a"', '"p"')),
     case("gap-policy-zero-covariate", {"d.csv": _drop_line(WITH_COV, 8)},
          {"covariates": ["p"], "missing": "zero"}, ("d.csv", 'series "a"', '"p"')),
-    case("missing-value-policy-error", {"d.csv": _replace_line(CSV, 27, "b,6,")}, None,
+    case("na-value-policy-error", {"d.csv": _replace_line(CSV, 27, "b,6,")}, None,
          ("d.csv", 'series "b"', 'column "y"', "missing value")),
-    case("missing-covariate-value", {"d.csv": _replace_line(WITH_COV, 26, "b,5,2,")},
+    case("na-covariate-value", {"d.csv": _replace_line(WITH_COV, 26, "b,5,2,")},
          {"covariates": ["p"], "missing": "zero"}, ("d.csv", 'series "b"', '"p"')),
     case("series-without-values", {"d.csv": "id,t,y\n" + "".join(f"a,{t},1\n" for t in range(1, 21))
                                    + "".join(f"b,{t},\n" for t in range(1, 21))},
@@ -315,7 +315,7 @@ BATTERY = [
     # --- too short for the windows
     case("series-too-short", {"d.csv": "id,t,y\n" + "".join(f"a,{t},1\n" for t in range(1, 9))},
          None, ("d.csv", "series 'a' has 8 observations")),
-    case("horizon-beyond-data", {"d.csv": CSV}, None, ("d.csv", "no series is long enough"),
+    case("series-horizon-beyond-data", {"d.csv": CSV}, None, ("d.csv", "no series is long enough"),
          horizon=30),
     # --- wide layout
     case("wide-text-in-series", {"d.csv": WIDE.replace("\n3,", "\n3,x")},
@@ -379,7 +379,7 @@ def test_battery_covers_every_kind():
         groups[p.id.split("-")[0]] = groups.get(p.id.split("-")[0], 0) + 1
     assert len(BATTERY) >= 50, len(BATTERY)
     for group in ("file", "gzip", "parquet", "ragged", "dup", "missing", "value", "time",
-                  "duplicate", "gap", "wide", "frequency", "series"):
+                  "duplicate", "gap", "na", "wide", "frequency", "series"):
         assert groups.get(group, 0) >= 2, (group, groups)
 
 

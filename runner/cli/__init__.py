@@ -141,7 +141,7 @@ def _stdout_closed() -> bool:
 
         poller = select.poll()
         poller.register(sys.stdout.fileno(), select.POLLOUT)
-        return any(events & select.POLLERR for _, events in poller.poll(0))
+        return any(events & (select.POLLERR | select.POLLHUP) for _, events in poller.poll(0))
     except (AttributeError, OSError, ValueError):  # no descriptor, or no poll()
         return False
 

@@ -99,7 +99,6 @@ def execute(
     return [o if o is not None else not_run(t.index) for t, o in zip(tasks, results)]
 
 
-
 def _one_at_a_time(
     tasks: Sequence[ModelTask],
     shared: SharedData,
