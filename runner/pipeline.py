@@ -97,6 +97,20 @@ def prepare(config: str | Path | Config, config_path: Path | None = None) -> Pla
     return plan
 
 
+def _check_paths(plan: Plan, target: Path | None, use_cache: bool) -> None:
+    """Fail before any computing when the results folder or the cache cannot be written."""
+    from runner.execution.cache import check_cache_folder
+    from runner.forecasters.registry import is_vectorised
+    from runner.output.writer import check_output_dir
+
+    if target is not None:
+        check_output_dir(target)
+    folder = plan.config.execution.cache_folder()
+    # Only per-series models use the cache; a run of baselines alone never opens it.
+    if use_cache and folder is not None and not all(map(is_vectorised, plan.forecasters)):
+        check_cache_folder(folder)
+
+
 def run(
     config: str | Path | Config | Plan,
     *,
@@ -111,15 +125,17 @@ def run(
 
     Writes the results folder unless ``write`` is False, and returns the leaderboard and the
     per-task scores as DataFrames. Bad config or data raise :class:`runner.ConfigError` /
-    :class:`runner.DataError` before anything is written.
+    :class:`runner.DataError` before anything is written, and a results folder or cache that
+    cannot be written raises :class:`runner.PathError` before anything is computed.
     """
     from runner.output.writer import manifest as build_manifest
     from runner.output.writer import write_results
 
     plan = config if isinstance(config, Plan) else prepare(config)
+    target = output_dir(plan.config, out_dir) if write else None
+    _check_paths(plan, target, use_cache)
     ev = evaluate(plan, use_cache=use_cache, jobs=jobs, quiet=quiet)
     board = build_leaderboard(ev)
-    target = output_dir(plan.config, out_dir) if write else None
     if target is not None:
         from runner.report.page import build_report
 

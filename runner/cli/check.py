@@ -15,6 +15,7 @@ def main(args: argparse.Namespace) -> int:
     cached."""
     import numpy as np
 
+    from runner.cli._summary import summarise
     from runner.pipeline import prepare
 
     plan = prepare(args.config)
@@ -44,9 +45,9 @@ def main(args: argparse.Namespace) -> int:
         where = ("each series' own, from its last observation" if cfg.windows.align == "end"
                  else "shared by every series")
         print(f"  origins: {len(labels)} ({span}; {where})")
-        for s in dp.skipped:
+        for s in summarise(dp.skipped):
             print(f"  too short: {s}")
-        for note in p.notes:
+        for note in summarise(p.notes):
             print(f"  note: {note}")
         names = [plan.forecasters[i].name for i in dp.forecasters]
         print(f"  forecasters ({len(names)}): {', '.join(names)}; reference {dp.reference}")

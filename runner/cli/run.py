@@ -18,6 +18,7 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
 
 def main(args: argparse.Namespace) -> int:
     """Exit 0 when every task succeeded, 3 when some failed (2 on bad input, raised)."""
+    from runner.cli._summary import summarise
     from runner.config.model import check_jobs
     from runner.errors import ConfigError
     from runner.output.tables import to_terminal
@@ -37,9 +38,9 @@ def main(args: argparse.Namespace) -> int:
         for warning in plan.warnings:
             print(f"castgrid: warning: {warning}", file=sys.stderr)
         for dp in plan.datasets:
-            for note in dp.panel.notes:
+            for note in summarise(dp.panel.notes):
                 print(f"castgrid: note: {dp.panel.name}: {note}", file=sys.stderr)
-            for s in dp.skipped:
+            for s in summarise(dp.skipped):
                 print(f"castgrid: warning: {dp.panel.name}: skipped {s}", file=sys.stderr)
     result = run(
         plan, out_dir=args.out, use_cache=not args.no_cache, jobs=args.jobs, quiet=args.quiet

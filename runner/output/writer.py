@@ -1,14 +1,21 @@
 """Writing a results folder: every file is built in a temporary folder, then swapped in.
 
 Nothing half-written: if anything fails while writing, the previous results stay as they were.
+The temporary folder (``.NAME.tmp-HOST-PID-XXXX``) and the previous results while they are
+being replaced (``.NAME.old-HOST-PID-XXXX``) sit beside ``NAME`` and carry the writing
+process's host and id, so that a later run can tell what a killed run left behind from what a
+running one is still writing (:func:`sweep_leftovers`).
 """
 
 from __future__ import annotations
 
+import hashlib
 import json
 import os
 import platform
+import re
 import shutil
+import socket
 import tempfile
 from collections.abc import Callable
 from pathlib import Path
@@ -19,6 +26,7 @@ import pandas as pd
 
 from runner import __version__
 from runner.config import canonical_json, config_hash
+from runner.errors import PathError
 from runner.forecasters.registry import identity
 from runner.output.reader import interval_columns
 from runner.output.tables import to_csv_text, to_markdown
@@ -277,7 +285,8 @@ def write_results(
     cols = M.columns(cfg.metrics, tuple(cfg.intervals))
     out_dir = Path(out_dir)
     out_dir.parent.mkdir(parents=True, exist_ok=True)
-    tmp = Path(tempfile.mkdtemp(prefix=f".{out_dir.name}.", dir=out_dir.parent))
+    sweep_leftovers(out_dir)
+    tmp = Path(tempfile.mkdtemp(prefix=f".{out_dir.name}.tmp-{_owner()}-", dir=out_dir.parent))
     os.chmod(tmp, 0o755)  # mkdtemp makes it private; a results folder is for everyone to read
     try:
         man = manifest(ev)
@@ -313,9 +322,100 @@ def write_results(
 def _swap_in(tmp: Path, out_dir: Path) -> None:
     """Replace ``out_dir`` by ``tmp`` with renames, so readers never see a mix of two runs."""
     if out_dir.exists():
-        old = out_dir.with_name(f".{out_dir.name}.old-{os.getpid()}")
+        # Named after tmp (unique, and marked with this process as its owner).
+        old = tmp.with_name(f".{out_dir.name}.old-" + tmp.name[len(f".{out_dir.name}.tmp-"):])
         os.replace(out_dir, old)
         os.replace(tmp, out_dir)
         shutil.rmtree(old, ignore_errors=True)
     else:
         os.replace(tmp, out_dir)
+
+
+# ------------------------------------------------------------- before a run, after a kill
+
+
+def check_output_dir(out_dir: str | Path) -> None:
+    """Raise :class:`~runner.errors.PathError` when ``out_dir`` cannot be written as a whole.
+
+    Run before any computing, so that a read-only folder costs the user a second, not a run:
+    the folder that will hold ``out_dir`` (or its nearest existing ancestor) must be a
+    writable folder, and an existing ``out_dir`` a writable folder (it is replaced as a
+    whole) with a readable ``history.jsonl``.
+    """
+    out_dir = Path(out_dir)
+    if out_dir.exists() and not out_dir.is_dir():
+        raise PathError(f"{out_dir}: expected a results folder, found a file")
+    holder = out_dir.absolute().parent
+    while not holder.exists() and holder != holder.parent:
+        holder = holder.parent
+    if not holder.is_dir():
+        raise PathError(f"{holder}: expected a folder to hold results folder {out_dir}, "
+                        "found a file")
+    if not os.access(holder, os.W_OK | os.X_OK):
+        raise PathError(
+            f"{holder}: cannot write here (permission denied or read-only), so results folder "
+            f"{out_dir} cannot be written; choose another --out or output.dir"
+        )
+    if out_dir.is_dir():
+        if not os.access(out_dir, os.W_OK | os.X_OK):
+            raise PathError(
+                f"{out_dir}: the results folder is read-only; a run replaces it as a whole "
+                "(make it writable, or choose another --out or output.dir)"
+            )
+        history = out_dir / "history.jsonl"
+        if history.exists() and not os.access(history, os.R_OK):
+            raise PathError(f"{history}: cannot read the run history (permission denied)")
+
+
+#: ``tmp`` or ``old``, the writer's host tag and process id, and mkdtemp's random part.
+_LEFTOVER = re.compile(r"(?P<kind>tmp|old)-(?P<host>[0-9a-f]{8})-(?P<pid>[0-9]+)-[A-Za-z0-9_]+")
+
+
+def _host_tag() -> str:
+    return hashlib.sha256(socket.gethostname().encode()).hexdigest()[:8]
+
+
+def _owner() -> str:
+    """``HOST-PID`` of this process, as written into the names of its temporary folders."""
+    return f"{_host_tag()}-{os.getpid()}"
+
+
+def _process_gone(pid: int) -> bool:
+    """True only when no process ``pid`` exists on this machine (POSIX; elsewhere False)."""
+    if os.name != "posix":
+        return False
+    try:
+        os.kill(pid, 0)
+    except ProcessLookupError:
+        return True
+    except OSError:  # exists, but belongs to another user
+        return False
+    return False
+
+
+def sweep_leftovers(out_dir: str | Path) -> list[Path]:
+    """Remove what killed runs left beside ``out_dir``; returns the folders removed.
+
+    Only folders named by :func:`write_results` for this ``out_dir``, written on this host, by
+    a process that no longer exists. A run killed between the two renames of the swap left
+    the previous results as ``.NAME.old-...`` and no ``NAME``: those are put back.
+    """
+    out_dir = Path(out_dir)
+    parent, prefix = out_dir.parent, f".{out_dir.name}."
+    try:
+        entries = sorted(p for p in parent.iterdir() if p.name.startswith(prefix))
+    except OSError:
+        return []
+    host, removed = _host_tag(), []
+    for entry in entries:
+        m = _LEFTOVER.fullmatch(entry.name[len(prefix):])
+        if m is None or m["host"] != host or not entry.is_dir() or entry.is_symlink():
+            continue
+        if not _process_gone(int(m["pid"])):
+            continue
+        if m["kind"] == "old" and not out_dir.exists():
+            os.replace(entry, out_dir)
+            continue
+        shutil.rmtree(entry, ignore_errors=True)
+        removed.append(entry)
+    return removed

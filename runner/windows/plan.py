@@ -282,7 +282,7 @@ def build_plan(
     base = config_path.parent
     plans = []
     for i, ds in enumerate(cfg.datasets):
-        panel = load_panel(ds, base, cfg.season)
+        panel = load_panel(ds, base, cfg.season, entry=f"{config_path}: datasets[{i}]")
         _check_season(cfg, i, panel, str(config_path))
         plans.append(plan_dataset(cfg, panel, specs, str(config_path)))
     return Plan(cfg, config_path, specs, plans)
