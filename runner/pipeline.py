@@ -137,9 +137,13 @@ def run(
     ev = evaluate(plan, use_cache=use_cache, jobs=jobs, quiet=quiet)
     board = build_leaderboard(ev)
     if target is not None:
+        from functools import partial
+
         from runner.report.page import build_report
 
-        man = write_results(ev, board, target, finish=build_report if report else None)
+        # plots whose data did not change are copied from the results being replaced
+        finish = partial(build_report, previous=target) if report else None
+        man = write_results(ev, board, target, finish=finish)
     else:
         man = build_manifest(ev)
     return RunResult(board, scores_frame(ev), target, man, ev)

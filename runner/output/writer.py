@@ -47,20 +47,19 @@ def _dict_array(codes: np.ndarray, labels: list[str]):
 
 
 def _versions() -> dict[str, str]:
-    import pyarrow
-    import pydantic
-    import scipy
-    import statsmodels
+    # From the installed packages' metadata: importing statsmodels and scipy only to read
+    # their versions would cost a run that fits nothing most of a second.
+    from importlib.metadata import version
 
     return {
         "castgrid": __version__,
         "python": platform.python_version(),
         "numpy": np.__version__,
         "pandas": pd.__version__,
-        "statsmodels": statsmodels.__version__,
-        "scipy": scipy.__version__,
-        "pydantic": pydantic.__version__,
-        "pyarrow": pyarrow.__version__,
+        "statsmodels": version("statsmodels"),
+        "scipy": version("scipy"),
+        "pydantic": version("pydantic"),
+        "pyarrow": version("pyarrow"),
     }
 
 

@@ -10,8 +10,6 @@ from __future__ import annotations
 from typing import Any
 
 import numpy as np
-import pandas as pd
-from statsmodels.tsa.exponential_smoothing.ets import ETSModel
 
 from runner.forecasters.contract import Forecast
 from runner.forecasters.models._common import (
@@ -109,6 +107,9 @@ class ETS:
         need_length(y.shape[0], self._minimum_length(season), "ets", "this model")
         # A Series with a RangeIndex, not an ndarray: statsmodels' get_prediction (intervals)
         # fails on ndarray input (it reads `.index` of the predicted mean).
+        import pandas as pd
+        from statsmodels.tsa.exponential_smoothing.ets import ETSModel  # here: see arima.py
+
         endog = pd.Series(y, copy=False)
         with quiet():
             res = ETSModel(

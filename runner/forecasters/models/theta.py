@@ -12,7 +12,6 @@ from __future__ import annotations
 from typing import Any
 
 import numpy as np
-from statsmodels.tsa.forecasting.theta import ThetaModel
 
 from runner.forecasters.contract import Forecast
 from runner.forecasters.models._common import (
@@ -103,6 +102,8 @@ class Theta:
                     "theta: method 'multiplicative' needs strictly positive values; the training "
                     "series has values <= 0"
                 )
+        from statsmodels.tsa.forecasting.theta import ThetaModel  # here: see arima.py
+
         with quiet():
             res = ThetaModel(
                 y,
