@@ -8,6 +8,7 @@
 from __future__ import annotations
 
 from dataclasses import dataclass
+from functools import cached_property
 from pathlib import Path
 from typing import Any
 
@@ -24,10 +25,15 @@ class RunResult:
     """What :func:`run` returns: the leaderboard, the task scores and where they were written."""
 
     leaderboard: pd.DataFrame
-    scores: pd.DataFrame
     out_dir: Path | None
     manifest: dict[str, Any]
     evaluation: Evaluation
+
+    @cached_property
+    def scores(self) -> pd.DataFrame:
+        """One row per dataset, series, forecaster and fold (:func:`scores_frame`); built on
+        first use, since the command line never needs it as a DataFrame."""
+        return scores_frame(self.evaluation)
 
     @property
     def failed_tasks(self) -> int:
@@ -146,4 +152,4 @@ def run(
         man = write_results(ev, board, target, finish=finish)
     else:
         man = build_manifest(ev)
-    return RunResult(board, scores_frame(ev), target, man, ev)
+    return RunResult(board, target, man, ev)

@@ -32,6 +32,7 @@ from runner.report.plots import (
     MAX_LINES,
     Sketch,
     history_runs,
+    series_extremes,
     sketch_folds,
     sketch_forecasts,
     sketch_history,
@@ -201,10 +202,16 @@ def _dataset_plots(view: DatasetView, results: Results) -> list[Plot]:
     out.append(p)
 
     p = Plot(f"{d}-forecasts.png", "forecasts against actuals", "")
-    if results.forecasts is None:
+    if not results.has_forecasts:
         p.missing = f"{FORECASTS} is not in the results folder"
     else:
-        sketch, note = sketch_forecasts(view, results.forecasts, results.scores)
+        # only the rows drawn are read: the best candidate's best and worst series
+        best = view.best()
+        drawn = [n for n in (best, view.reference) if n is not None]
+        picks = (series_extremes(view, results.scores, best)
+                 if best is not None and results.scores is not None else None)
+        rows = results.forecast_rows(d, picks, drawn)
+        sketch, note = sketch_forecasts(view, rows, results.scores)
         p.take(sketch)
         p.caption = (f"Best and worst series (by mean {m}) of the best candidate: {note}. "
                      "The dashed black line is the reference's forecast.")
@@ -255,7 +262,7 @@ def build_report(out_dir: Path, previous: Path | None = None) -> Path:
     is missing or any file present is damaged; nothing is written in that case.
     """
     out_dir = Path(out_dir)
-    results = read_results(out_dir)
+    results = read_results(out_dir, forecasts=False)
     per_view = [(view, _dataset_plots(view, results)) for view in dataset_views(results)]
     plots = [p for _, mine in per_view for p in mine]
     places = [out_dir / PLOTS] + ([Path(previous) / PLOTS] if previous is not None else [])

@@ -258,6 +258,15 @@ def _paint_folds(data: dict[str, Any]) -> Drawn:
     return Drawn(fig, notes)
 
 
+def text_in(column: pd.Series, names: Sequence[Any]) -> pd.Series:
+    """Rows of ``column`` whose value, as text, is one of ``names``: the text of each distinct
+    value is compared, never that of every row (a column may hold millions)."""
+    import pandas as pd
+
+    wanted = {str(n) for n in names}
+    return column.isin([v for v in pd.unique(column) if str(v) in wanted])
+
+
 def series_extremes(view: DatasetView, scores: pd.DataFrame, forecaster: str,
                     series: Sequence[str] | None = None) -> list[str]:
     """The best and the worst of ``series`` (all when None) for ``forecaster``.
@@ -267,8 +276,10 @@ def series_extremes(view: DatasetView, scores: pd.DataFrame, forecaster: str,
     """
     part = scores[(scores["dataset"] == view.dataset) & (scores["forecaster"] == forecaster)]
     if series is not None:
-        part = part[part["series"].astype(str).isin([str(s) for s in series])]
-    means = part.groupby(part["series"].astype(str))[view.rank_by].mean().dropna()
+        part = part[text_in(part["series"], series)]
+    means = part.groupby("series", observed=True, sort=False)[view.rank_by].mean()
+    means.index = means.index.astype(str)
+    means = means.dropna()
     if means.empty:
         return []
     order = sorted(means.items(), key=lambda kv: (kv[1], kv[0]))
@@ -299,7 +310,7 @@ def sketch_forecasts(view: DatasetView, forecasts: pd.DataFrame, scores: pd.Data
         return None, "no forecaster has a score"
     part = forecasts[forecasts["dataset"] == view.dataset]
     if series is not None:
-        part = part[part["series"].astype(str).isin([str(s) for s in series])]
+        part = part[text_in(part["series"], series)]
     if scores is not None:
         picks = series_extremes(view, scores, best, series)
     else:  # no scores: the first series the best forecaster has forecasts for
@@ -312,9 +323,9 @@ def sketch_forecasts(view: DatasetView, forecasts: pd.DataFrame, scores: pd.Data
     drawn = [best] + ([view.reference] if view.reference and view.reference != best else [])
     panels = []
     for name, label in zip(picks, ["best series", "worst series"]):
-        rows = part[part["series"].astype(str) == name]
+        rows = part[text_in(part["series"], [name])]
         # only what the panel draws, so that the plot's key changes only when the plot does
-        rows = rows[rows["forecaster"].astype(str).isin(drawn)].copy()
+        rows = rows[text_in(rows["forecaster"], drawn)].copy()
         rows["_t"] = _time_axis(rows["time"])
         key = fold_key(rows)
         keep = ["_t", "actual", "forecast", "forecaster", key]
