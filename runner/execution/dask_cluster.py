@@ -84,9 +84,11 @@ def run_dask(
     if address:
         client = Client(address, timeout="30s")
     else:
+        # Dask workers in this process: each fit runs in a castgrid worker process of its own
+        # anyway (dask_batch), so dask worker processes would only add their start-up.
         cluster = LocalCluster(
-            n_workers=jobs, threads_per_worker=1, processes=True, host="127.0.0.1",
-            dashboard_address="127.0.0.1:0", silence_logs=logging.ERROR,
+            n_workers=jobs, threads_per_worker=1, processes=False,
+            dashboard_address=None, silence_logs=logging.ERROR,
         )
         client = Client(cluster)
     run_id = uuid.uuid4().hex

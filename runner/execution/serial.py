@@ -77,6 +77,12 @@ def run_serial(
     on_done: OnDone | None,
     results: list[TaskOutcome | None],
 ) -> None:
+    from runner.forecasters.models import load_fitting_libraries
+    from runner.forecasters.registry import entry_of
+
+    # the models import statsmodels when they first fit: import it now, outside any timer
+    load_fitting_libraries([entry_of(shared.forecasters[f]) for f in
+                            {t.forecaster for t in tasks}])
     with _blas_one_thread():
         for pos, task in enumerate(tasks):
             outcome = run_with_timer(task, shared, fit_timeout)

@@ -1,7 +1,12 @@
 """Worker processes supervised by this process: a stuck fit costs its worker, a dying worker
 costs only the task it ran, and the data of a run travels to each worker once.
 
-A worker process runs :func:`worker_main`.
+On Linux, when this process runs a single thread, a worker is a fork of it: it starts at once,
+with the libraries the forecasters need already imported (loaded here once, before the first
+fork) and the run's data in memory, shared until written. Elsewhere, or when threads are running
+(forking a process with several threads may copy a lock held by another thread), a worker is a
+new interpreter that loads the run's data from a file written once and runs :func:`worker_main`.
+Both run the same loop, :func:`_serve`.
 """
 
 from __future__ import annotations
@@ -12,6 +17,7 @@ import signal
 import subprocess
 import sys
 import tempfile
+import threading
 import time
 from collections import deque
 from collections.abc import Callable, Sequence
@@ -67,12 +73,124 @@ _WORKER_BOOT = (
 )
 
 
-class _Worker:
-    """One supervised worker process and the batch it is running."""
+def can_fork() -> bool:
+    """Whether workers are started as forks of this process (Linux, one thread running)."""
+    return sys.platform.startswith("linux") and threading.active_count() == 1
 
-    def __init__(self, data_file: str) -> None:
+
+class _Forked:
+    """A forked worker process, with the part of ``subprocess.Popen``'s interface used here."""
+
+    def __init__(self, pid: int) -> None:
+        self.pid = pid
+        self.returncode: int | None = None
+
+    def _reap(self, flags: int) -> None:
+        try:
+            pid, status = os.waitpid(self.pid, flags)
+        except ChildProcessError:  # reaped elsewhere: its status is lost
+            self.returncode = 255
+            return
+        if pid:
+            self.returncode = os.waitstatus_to_exitcode(status)
+
+    def poll(self) -> int | None:
+        if self.returncode is None:
+            self._reap(os.WNOHANG)
+        return self.returncode
+
+    def wait(self) -> int:
+        if self.returncode is None:
+            self._reap(0)
+        assert self.returncode is not None
+        return self.returncode
+
+    def kill(self) -> None:
+        if self.returncode is None:
+            try:
+                os.kill(self.pid, signal.SIGKILL)
+            except ProcessLookupError:
+                pass
+
+
+def _fork(shared: SharedData, to_child_r: int, from_child_w: int, drop: list[int]) -> _Forked:
+    """Fork a worker that serves tasks on the two pipe ends; ``drop`` are this process's ends."""
+    for stream in (sys.stdout, sys.stderr):  # nothing buffered here may be written twice
+        try:
+            stream.flush()
+        except (OSError, ValueError, AttributeError):
+            pass
+    pid = os.fork()
+    if pid:
+        return _Forked(pid)
+    code = 0
+    try:  # the child: never returns into the caller's code
+        keep = {0, 1, 2, to_child_r, from_child_w}
+        # Pipe ends of this process and of sibling workers must close here, or a worker's death
+        # would not reach the supervisor as the end of its pipe.
+        for fd in drop + _open_fds():
+            if fd not in keep:
+                try:
+                    os.close(fd)
+                except OSError:
+                    pass
+        devnull = os.open(os.devnull, os.O_RDONLY)
+        os.dup2(devnull, 0)
+        os.close(devnull)
+        os.dup2(2, 1)  # what a plugin prints must not mix with the leaderboard on stdout
+        signal.signal(signal.SIGALRM, signal.SIG_DFL)
+        signal.signal(signal.SIGTERM, signal.SIG_DFL)
+        limits = _blas_one_thread()  # the libraries are loaded already: env vars come too late
+        with limits:
+            _serve(to_child_r, from_child_w, shared)
+    except BaseException:
+        code = 1
+        try:
+            import traceback
+
+            traceback.print_exc()
+        except BaseException:
+            pass
+    finally:
+        os._exit(code)
+
+
+def _open_fds() -> list[int]:
+    try:
+        return [int(name) for name in os.listdir("/proc/self/fd")]
+    except OSError:
+        return []
+
+
+def _blas_one_thread() -> Any:
+    from runner.execution.serial import _blas_one_thread as limit
+
+    return limit()
+
+
+class _Worker:
+    """One supervised worker process and the batch it is running.
+
+    A fork of this process when ``shared`` is given, else a new interpreter that loads
+    ``data_file``.
+    """
+
+    def __init__(self, data_file: str | None, shared: SharedData | None = None,
+                 siblings: Sequence[_Worker] = ()) -> None:
         to_child_r, to_child_w = os.pipe()
         from_child_r, from_child_w = os.pipe()
+        if shared is not None:
+            drop = [to_child_w, from_child_r]
+            for w in siblings:
+                drop.extend((w.inbox.fileno(), w.outbox.fileno()))
+            try:
+                self.proc: Any = _fork(shared, to_child_r, from_child_w, drop)
+            finally:
+                os.close(to_child_r)
+                os.close(from_child_w)
+            self._connect(from_child_r, to_child_w)
+            return
+        assert data_file is not None
         env = dict(os.environ)
         env.update(WORKER_ENV)
         # The runner package must be importable in the worker even when it is not installed.
@@ -92,6 +210,9 @@ class _Worker:
         finally:
             os.close(to_child_r)
             os.close(from_child_w)
+        self._connect(from_child_r, to_child_w)
+
+    def _connect(self, from_child_r: int, to_child_w: int) -> None:
         self.inbox = Connection(from_child_r, writable=False)
         self.outbox = Connection(to_child_w, readable=False)
         self.ready = False
@@ -118,10 +239,15 @@ class _Worker:
 
 
 class _Supervisor:
-    """Runs task positions on ``jobs`` worker processes, replacing any worker that fails."""
+    """Runs task positions on ``jobs`` worker processes, replacing any worker that fails.
+
+    Workers are forks of this process (:func:`can_fork`) when ``shared`` is given, else new
+    interpreters loading ``data_file`` (written from ``shared`` into ``folder`` when needed).
+    """
 
     def __init__(
-        self, tasks: Sequence[ModelTask], data_file: str, jobs: int, fit_timeout: float
+        self, tasks: Sequence[ModelTask], data_file: str | None, jobs: int, fit_timeout: float,
+        *, shared: SharedData | None = None, folder: str | None = None,
     ) -> None:
         self.tasks = tasks
         self.data_file = data_file
@@ -129,9 +255,18 @@ class _Supervisor:
         self.fit_timeout = fit_timeout
         self.workers: list[_Worker] = []
         self.failed_starts = 0
+        self.shared = shared
+        self.folder = folder
 
     def _spawn(self) -> _Worker:
-        worker = _Worker(self.data_file)
+        if self.shared is not None and can_fork():
+            _preload(self.shared)  # once: every fork then starts with the libraries loaded
+            worker = _Worker(None, self.shared, self.workers)
+        else:
+            if self.data_file is None:
+                assert self.shared is not None and self.folder is not None
+                self.data_file = write_data_file(self.shared, self.folder)
+            worker = _Worker(self.data_file)
         self.workers.append(worker)
         return worker
 
@@ -168,11 +303,15 @@ class _Supervisor:
             # Smaller batches as the queue drains, so no worker is left with a long tail.
             size = max(1, min(MAX_BATCH, len(queue) // (2 * self.jobs)))
             for worker in self.workers:
-                if worker.ready and not worker.batch and queue:
+                # The next batch goes out while the worker still has tasks in hand, so it never
+                # waits for this process between batches (a round trip per batch, longer on a
+                # busy machine, would leave the worker idle).
+                if worker.ready and queue and len(worker.batch) <= size // 2:
                     batch = [queue.popleft() for _ in range(min(size, len(queue)))]
+                    if not worker.batch:  # idle until now: the clock starts with this batch
+                        worker.deadline = now + self.fit_timeout + TIMEOUT_SLACK
                     worker.batch.extend(batch)
                     worker.send(("batch", [self.tasks[p] for p in batch]))
-                    worker.deadline = now + self.fit_timeout + TIMEOUT_SLACK
             deadline = min(
                 w.deadline if w.ready else w.started + max(START_TIMEOUT, self.fit_timeout)
                 for w in self.workers
@@ -261,7 +400,8 @@ def run_workers(
             on_done(outcome)
 
     with tempfile.TemporaryDirectory(prefix="castgrid-run-") as folder:
-        supervisor = _Supervisor(tasks, write_data_file(shared, folder), jobs, fit_timeout)
+        # the data file is written only if a worker has to be a new interpreter
+        supervisor = _Supervisor(tasks, None, jobs, fit_timeout, shared=shared, folder=folder)
         try:
             supervisor.run(range(len(tasks)), stop, emit)
         finally:
@@ -286,14 +426,21 @@ def worker_main(read_fd: int, write_fd: int, data_file: str) -> None:
     # Ctrl-C reaches the whole process group; the parent decides what happens to the run.
     signal.signal(signal.SIGINT, signal.SIG_IGN)
     _set_parent_death_signal()
-    inbox = Connection(read_fd, writable=False)
-    outbox = Connection(write_fd, readable=False)
     with open(data_file, "rb") as fh:
         parent_path, shared = pickle.load(fh)
     for entry in parent_path:
         if entry not in sys.path and (entry == "" or os.path.isdir(entry)):
             sys.path.append(entry)
     _preload(shared)
+    _serve(read_fd, write_fd, shared)
+
+
+def _serve(read_fd: int, write_fd: int, shared: SharedData) -> None:
+    """Say ready, then run the batches that arrive on ``read_fd`` until told to stop."""
+    signal.signal(signal.SIGINT, signal.SIG_IGN)
+    _set_parent_death_signal()
+    inbox = Connection(read_fd, writable=False)
+    outbox = Connection(write_fd, readable=False)
 
     def send(message: Any) -> None:
         outbox.send_bytes(pickle.dumps(message, protocol=pickle.HIGHEST_PROTOCOL))
@@ -325,11 +472,15 @@ def worker_main(read_fd: int, write_fd: int, data_file: str) -> None:
 def _preload(shared: SharedData) -> None:
     """Import every forecaster's module now, so import time never counts toward a timeout."""
     from runner.errors import PluginError
+    from runner.forecasters.models import load_fitting_libraries
     from runner.forecasters.registry import entry_of, load_entry
 
+    entries = []
     for spec in shared.forecasters:
         try:
-            load_entry(entry_of(spec))
+            entries.append(entry_of(spec))
+            load_entry(entries[-1])
         except (PluginError, KeyError, AssertionError):
             pass  # the task itself will report it
+    load_fitting_libraries(entries)  # the models import statsmodels only when they fit
 
