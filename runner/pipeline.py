@@ -75,6 +75,7 @@ def prepare(config: str | Path | Config, config_path: Path | None = None) -> Pla
     one line naming the config field, not a failed task per series.
     """
     from runner.config import load_config
+    from runner.forecasters.recorded import RecordedSources
     from runner.forecasters.specs import forecaster_specs
     from runner.forecasters.validation import validate_forecasters
     from runner.scoring.metrics import DEFAULT_METRICS, check_metrics
@@ -87,7 +88,12 @@ def prepare(config: str | Path | Config, config_path: Path | None = None) -> Pla
     if config.metrics is None:
         config = config.model_copy(update={"metrics": list(DEFAULT_METRICS)})
     validate_forecasters(config, config_path)
-    return build_plan(config, forecaster_specs(config), config_path)
+    specs = forecaster_specs(config)
+    # forecasts made elsewhere: read and checked here, before any work, like the datasets
+    recorded = RecordedSources(config, specs, config_path)
+    plan = build_plan(config, specs, config_path, file_origins=recorded.origins)
+    recorded.attach(plan)
+    return plan
 
 
 def run(

@@ -1,13 +1,13 @@
 """The per-series model tasks of a plan: one (dataset, series, forecaster, fold) each.
 
 Vectorised forecasters (the benchmarks) are not tasks: they run over every fold of a dataset at
-once, in the parent process.
+once, in the parent process; recorded candidates are read from their files (no task either).
 """
 
 from __future__ import annotations
 
 from runner.execution.tasks import ModelTask, SharedData
-from runner.forecasters.registry import is_vectorised
+from runner.forecasters.registry import is_from_file, is_vectorised
 from runner.windows.plan import Plan
 
 
@@ -16,7 +16,7 @@ def build_model_tasks(plan: Plan) -> tuple[list[ModelTask], SharedData]:
     tasks: list[ModelTask] = []
     for d, dp in enumerate(plan.datasets):
         for f in dp.forecasters:
-            if is_vectorised(plan.forecasters[f]):
+            if is_vectorised(plan.forecasters[f]) or is_from_file(plan.forecasters[f]):
                 continue
             for t in range(dp.n_tasks):
                 tasks.append(

@@ -24,6 +24,9 @@ class Kind:
     ``role`` is ``baseline`` (a benchmark, listed under ``baselines:``) or ``candidate`` (a model,
     listed under ``models:``). ``default`` benchmarks run when a config lists no baselines;
     ``seasonal_only`` ones need a season above 1 and are left out of the defaults otherwise.
+    ``from_file`` candidates fit nothing: their forecasts are read from a file
+    (:mod:`runner.forecasters.recorded`), so no model task is built for them and they have no
+    ``fit`` / ``predict``.
     """
 
     name: str
@@ -32,6 +35,7 @@ class Kind:
     summary: str
     default: bool = False
     seasonal_only: bool = False
+    from_file: bool = False
 
 
 _B = "runner.forecasters.benchmarks"
@@ -64,6 +68,8 @@ KINDS: tuple[Kind, ...] = (
     Kind("theta", f"{_M}.theta:Theta", "candidate", "the theta method"),
     Kind("arima_search", f"{_M}.arima_search:ArimaSearch", "candidate",
          "ARIMA with orders chosen by a stepwise search per training window"),
+    Kind("recorded", "runner.forecasters.recorded:Recorded", "candidate",
+         "forecasts made elsewhere, read from a file and scored like any other", from_file=True),
 )
 BY_KIND: dict[str, Kind] = {k.name: k for k in KINDS}
 #: ``kind`` -> ``module:attribute`` of every built-in.
@@ -75,6 +81,12 @@ PLUGIN = "plugin"
 def kinds_for(role: str) -> list[str]:
     """Names of the built-in kinds of ``role`` (``baseline`` or ``candidate``)."""
     return [k.name for k in KINDS if k.role == role]
+
+
+def is_from_file(spec: ForecasterSpec) -> bool:
+    """True for candidates whose forecasts are read from a file instead of fitted."""
+    kind = BY_KIND.get(spec.kind)
+    return kind is not None and kind.from_file
 
 
 def entry_of(spec: ForecasterSpec) -> str:

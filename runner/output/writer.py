@@ -19,6 +19,7 @@ import pandas as pd
 
 from runner import __version__
 from runner.config import canonical_json, config_hash
+from runner.forecasters.recorded import manifest_entries
 from runner.forecasters.registry import identity
 from runner.output.reader import interval_columns
 from runner.scoring import metrics as M
@@ -63,7 +64,7 @@ def manifest(ev: Evaluation) -> dict[str, Any]:
     cfg = ev.plan.config
     failed = sum(int(r.failed.sum()) for dr in ev.datasets for r in dr.results)
     total = ev.plan.n_tasks
-    return {
+    man: dict[str, Any] = {
         "experiment": cfg.experiment,
         "config": json.loads(canonical_json(cfg)),
         "config_hash": config_hash(cfg),
@@ -97,6 +98,9 @@ def manifest(ev: Evaluation) -> dict[str, Any]:
             for s in ev.plan.forecasters
         ],
     }
+    if ev.plan.recorded:  # the forecasts files read, so that diff can tell when one changed
+        man["recorded"] = manifest_entries(ev.plan)
+    return man
 
 
 def _scores_table(ev: Evaluation, cols: list[str]):
