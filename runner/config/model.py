@@ -32,6 +32,8 @@ RENAMED_PARAMS = {
         "max_models": "fits_up_to",
     },
 }
+#: ``windows.origins: from_file``: the origins are those of the recorded candidates' files.
+FROM_FILE = "from_file"
 _SHARE = re.compile(r"^\s*(\d+(?:\.\d+)?)\s*%\s*$")
 _NAME = re.compile(r"^[A-Za-z0-9][A-Za-z0-9._-]*$")
 
@@ -107,7 +109,9 @@ class WindowsConfig(_Strict):
     An origin is the time of the last training observation. Origins are points on the
     dataset's time axis shared by all its series: counted from the dataset's first time by
     default, or given as ``origins`` (a list of times) or ``first_origin`` (then every
-    ``step``). ``align: end`` instead ties them to each series' last observation.
+    ``step``). ``origins: from_file`` takes them from the forecasts files of the config's
+    ``recorded`` candidates (:mod:`runner.forecasters.recorded`). ``align: end`` instead ties
+    them to each series' last observation.
     """
 
     scheme: Literal["expanding", "sliding"] = "expanding"
@@ -116,7 +120,7 @@ class WindowsConfig(_Strict):
     folds: int | None = Field(default=None, ge=1)
     gap: int = Field(default=0, ge=0)
     align: Literal["start", "end"] = "start"
-    origins: list[int | str] | None = None
+    origins: list[int | str] | Literal["from_file"] | None = None
     first_origin: int | str | None = None
 
     @field_validator("train", mode="before")
@@ -140,10 +144,12 @@ class WindowsConfig(_Strict):
     @field_validator("origins", mode="before")
     @classmethod
     def _origins_are_times(cls, v: Any) -> Any:
-        if v is None:
-            return None
+        if v is None or v == FROM_FILE:
+            return v
         if not isinstance(v, list) or not v:
-            raise ValueError(f"expected a non-empty list of times, got {_shown(v)}")
+            raise ValueError(
+                f"expected a non-empty list of times or {FROM_FILE}, got {_shown(v)}"
+            )
         times = [_config_time(x) for x in v]
         seen: set[Any] = set()
         for t in times:

@@ -27,6 +27,9 @@ class Kind:
     ``derived`` candidates make no forecast of their own: their forecasts are computed from
     other forecasters' forecasts of the same run (:mod:`runner.forecasters.derived`), so no
     model task is built for them and they have no ``fit`` / ``predict``.
+    ``from_file`` candidates fit nothing: their forecasts are read from a file
+    (:mod:`runner.forecasters.recorded`), so no model task is built for them and they have no
+    ``fit`` / ``predict``.
     """
 
     name: str
@@ -36,6 +39,7 @@ class Kind:
     default: bool = False
     seasonal_only: bool = False
     derived: bool = False
+    from_file: bool = False
 
 
 _B = "runner.forecasters.benchmarks"
@@ -75,6 +79,8 @@ KINDS: tuple[Kind, ...] = (
     Kind("best_so_far", f"{_D}:BestSoFar", "candidate",
          "per series, the listed forecaster that scored best at earlier folds only",
          derived=True),
+    Kind("recorded", "runner.forecasters.recorded:Recorded", "candidate",
+         "forecasts made elsewhere, read from a file and scored like any other", from_file=True),
 )
 BY_KIND: dict[str, Kind] = {k.name: k for k in KINDS}
 #: ``kind`` -> ``module:attribute`` of every built-in.
@@ -92,6 +98,10 @@ def is_derived(spec: ForecasterSpec) -> bool:
     """True for candidates whose forecasts are computed from other forecasters' forecasts."""
     kind = BY_KIND.get(spec.kind)
     return kind is not None and kind.derived
+def is_from_file(spec: ForecasterSpec) -> bool:
+    """True for candidates whose forecasts are read from a file instead of fitted."""
+    kind = BY_KIND.get(spec.kind)
+    return kind is not None and kind.from_file
 
 
 def entry_of(spec: ForecasterSpec) -> str:

@@ -27,6 +27,7 @@ import pandas as pd
 from runner import __version__
 from runner.config import canonical_json, config_hash
 from runner.errors import PathError
+from runner.forecasters.recorded import manifest_entries
 from runner.forecasters.registry import identity
 from runner.output.reader import interval_columns
 from runner.output.tables import to_csv_text, to_markdown
@@ -74,7 +75,7 @@ def manifest(ev: Evaluation) -> dict[str, Any]:
     cfg = ev.plan.config
     failed = sum(int(r.failed.sum()) for dr in ev.datasets for r in dr.results)
     total = ev.plan.n_tasks
-    return {
+    man: dict[str, Any] = {
         "experiment": cfg.experiment,
         "config": json.loads(canonical_json(cfg)),
         "config_hash": config_hash(cfg),
@@ -112,6 +113,9 @@ def manifest(ev: Evaluation) -> dict[str, Any]:
             for s in ev.plan.forecasters
         ],
     }
+    if ev.plan.recorded:  # the forecasts files read, so that diff can tell when one changed
+        man["recorded"] = manifest_entries(ev.plan)
+    return man
 
 
 def scores_table(ev: Evaluation, cols: list[str]) -> Any:

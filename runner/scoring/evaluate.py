@@ -11,6 +11,7 @@ from runner.config import ForecasterSpec
 from runner.execution.dispatch import EngineCounts, forecast_models
 from runner.execution.model_tasks import build_model_tasks
 from runner.execution.tasks import ModelTask
+from runner.forecasters.recorded import recorded_forecasts
 from runner.forecasters.registry import build, is_vectorised
 from runner.forecasters.slices import SliceSummary, summarise
 from runner.scoring import metrics as M
@@ -128,6 +129,10 @@ def evaluate(
             spec = plan.forecasters[f]
             if is_vectorised(spec):
                 per_dataset[d][f] = _baseline_result(spec, dp, summaries[d], horizon, levels)
+    for rec in recorded_forecasts(plan):  # forecasts read from files: no fit, no task
+        per_dataset[rec.dataset][rec.forecaster] = ForecasterResult(
+            plan.forecasters[rec.forecaster], rec.point, rec.lower, rec.upper, rec.reason,
+            rec.message)
     model_tasks, shared = build_model_tasks(plan)
 
     # Per-series models: through the engine (cache, workers, fault isolation).
