@@ -60,24 +60,25 @@ def _rank_order(
 
 
 def _shared_tasks(
-    r: ForecasterResult, ref: ForecasterResult, rank_by: str, keep: np.ndarray
+    r: ForecasterResult, ref: ForecasterResult, rank_by: str, keep: np.ndarray,
+    failed: np.ndarray, ref_failed: np.ndarray,
 ) -> np.ndarray:
-    """Tasks among ``keep`` that both ``r`` and the reference completed and have a rank-metric
-    score for."""
+    """Tasks among ``keep`` that both ``r`` and the reference completed (``failed`` /
+    ``ref_failed``: their failed-task masks) and have a rank-metric score for."""
     score = r.scores[rank_by].per_task
     ref_score = ref.scores[rank_by].per_task
-    return keep & ~r.failed & ~ref.failed & ~np.isnan(score) & ~np.isnan(ref_score)
+    return keep & ~failed & ~ref_failed & ~np.isnan(score) & ~np.isnan(ref_score)
 
 
 def _relative(
     r: ForecasterResult, ref: ForecasterResult, origin: np.ndarray, rank_by: str,
-    keep: np.ndarray,
+    both: np.ndarray,
 ) -> float:
-    """Rank metric of ``r`` over the reference's, both as fold means over the shared tasks.
+    """Rank metric of ``r`` over the reference's, both as fold means over the shared tasks
+    ``both`` (:func:`_shared_tasks`).
 
     NaN when there is no shared task, or the reference's mean is 0 or undefined.
     """
-    both = _shared_tasks(r, ref, rank_by, keep)
     if not both.any():
         return float("nan")
     value, _ = _fold_mean_sd(r.scores[rank_by].per_task[both], origin[both])
@@ -91,11 +92,10 @@ def _relative(
 
 def _versus_reference(
     r: ForecasterResult, ref: ForecasterResult, dr: DatasetResult, rank_by: str, horizon: int,
-    step: int, keep: np.ndarray,
+    step: int, both: np.ndarray,
 ) -> dict[str, object]:
     from runner.scoring.significance import compare_with_reference
 
-    both = _shared_tasks(r, ref, rank_by, keep)
     score = r.scores[rank_by].per_task
     ref_score = ref.scores[rank_by].per_task
     if not both.any():
@@ -176,10 +176,13 @@ def dataset_rows(
     keep = np.ones(dp.n_tasks, dtype=bool) if keep is None else np.asarray(keep, dtype=bool)
     origin = dp.origin[keep]
     ref = next(r for r in dr.results if r.spec.name == dp.reference)
+    # each result's failed mask once: the property rebuilds it from the reasons at every call
+    failed_of = [r.failed for r in dr.results]
+    ref_failed = ref.failed
     block = []
-    for r in dr.results:
-        ok = ~r.failed & keep
-        failed = r.failed & keep
+    for r, r_failed in zip(dr.results, failed_of):
+        ok = ~r_failed & keep
+        failed = r_failed & keep
         row: dict[str, object] = {
             "dataset": dp.panel.name,
             "forecaster": r.spec.name,
@@ -198,15 +201,16 @@ def dataset_rows(
             if M.metric_of(col).reduction == "root_mean":
                 row[f"{col}_pooled"] = _pooled_root(per_task)
         block.append(row)
-    for row, r in zip(block, dr.results):
-        rel = _relative(r, ref, dp.origin, rank_by, keep)
+    for row, r, r_failed in zip(block, dr.results, failed_of):
+        both = _shared_tasks(r, ref, rank_by, keep, r_failed, ref_failed)
+        rel = _relative(r, ref, dp.origin, rank_by, both)
         row[f"{rank_by}_rel"] = rel
         if r is ref:
             row.update(win_share=np.nan, dm_better=np.nan, dm_worse=np.nan,
                        wilcoxon_p=np.nan)
             row["beats_reference"] = False
             continue
-        vs = _versus_reference(r, ref, dr, rank_by, cfg.horizon, _origin_spacing(ev, dp), keep)
+        vs = _versus_reference(r, ref, dr, rank_by, cfg.horizon, _origin_spacing(ev, dp), both)
         significant = vs.pop("significant")
         row.update(vs)
         row["beats_reference"] = bool(
