@@ -607,6 +607,28 @@ def test_skill_per_segment(run):
         segment_skill(seg, "plain", "state")
 
 
+def test_the_report_shows_skill_per_segment_and_each_segments_series(run):
+    """The report's table per attribute holds the same skill as segment_skill, and each
+    segment gets a forecasts plot of its own best and worst series."""
+    import re
+
+    from runner.report.page import build_report
+
+    tmp, result, long = run
+    page = build_report(tmp / "out").read_text()
+    assert "Skill per state" in page and "Skill per area" in page
+    skill = segment_skill(result.segments, "tourism", "state")
+    shown = f"{skill.loc['naive', 'NSW']:+.1f}%"
+    assert shown in page
+    plots = {p.name for p in (tmp / "out" / "plots").glob("tourism-forecasts-*.png")}
+    assert plots >= {f"tourism-forecasts-{a}-{v}.png" for a, v in
+                     [("area", "metro"), ("area", "regional"), *(("state", s) for s in
+                      ["NSW", "OTH", "QLD", "SAU", "VIC", "WAU"])]}
+    # the metro plot picks its series among the Metro regions only
+    metro = re.search(r"forecasts on area metro.*?</figure>", page, re.S).group(0)
+    assert "Metro" in metro
+
+
 # ------------------------------------------------------------------- castgrid diff by segment
 
 
