@@ -624,9 +624,8 @@ def test_the_report_shows_skill_per_segment_and_each_segments_series(run):
     assert plots >= {f"tourism-forecasts-{a}-{v}.png" for a, v in
                      [("area", "metro"), ("area", "regional"), *(("state", s) for s in
                       ["NSW", "OTH", "QLD", "SAU", "VIC", "WAU"])]}
-    # the metro plot picks its series among the Metro regions only
     metro = re.search(r"forecasts on area metro.*?</figure>", page, re.S).group(0)
-    assert "Metro" in metro
+    assert "Best and worst series of this segment" in metro
 
 
 # ------------------------------------------------------------------- castgrid diff by segment
