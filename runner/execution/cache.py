@@ -2,11 +2,13 @@
 
 A task's key is a SHA-256 over the forecaster's identity (kind, entry, canonical parameters,
 implementation version: :func:`runner.forecasters.registry.identity`), the training values it saw
-(raw float64 bytes), the covariates it saw (training and test block, only for forecasters that are
-given covariates), the horizon, the season, the gap between training end and test block, and
-the interval levels. The position of a slice in its series is not part of the key, so appended
-observations leave the keys of every earlier fold unchanged, and a revised value changes exactly
-the keys of the folds whose training slice contains it.
+(raw float64 bytes, after its gaps were filled from the slice alone:
+:func:`runner.execution.tasks.training_values`), the covariates it saw (training and test
+block, only for forecasters that are given covariates), the horizon, the season, the gap
+between training end and test block, and the interval levels. The position of a slice in its
+series is not part of the key, so appended observations leave the keys of every earlier fold
+unchanged, and a revised value changes exactly the keys of the folds whose training slice
+contains it.
 
 The store is ``<cache folder>/forecasts.sqlite`` in WAL mode. Only the parent process writes,
 in small transactions as tasks finish, so a killed run loses at most the tasks in flight. Two
@@ -116,6 +118,7 @@ def task_keys(tasks: Sequence[ModelTask], shared: SharedData) -> list[bytes]:
     """
     import numpy as np
 
+    from runner.execution.tasks import training_values
     from runner.forecasters.registry import accepts_covariates, identity
 
     idents: dict[int, tuple[bytes, bool]] = {}
@@ -133,8 +136,8 @@ def task_keys(tasks: Sequence[ModelTask], shared: SharedData) -> list[bytes]:
         ident, uses_cov = idents[task.forecaster]
         vk = (task.dataset, task.start, task.end)
         if vk not in value_digests:
-            y = np.ascontiguousarray(shared.values[task.dataset][task.start : task.end],
-                                     dtype=np.float64)
+            # what the forecaster sees: the slice with its gaps filled from the slice alone
+            y = np.ascontiguousarray(training_values(task, shared), dtype=np.float64)
             value_digests[vk] = _digest(memoryview(y).cast("B"))
         cov_digest = b"not-given"
         cov = shared.covariates[task.dataset]

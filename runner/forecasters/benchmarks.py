@@ -23,6 +23,10 @@ Two more benchmarks practitioners use have no published interval formula and giv
 intervals: ``moving_average`` (mean, median or mode of the last ``size`` values, a moving
 average forecast) and ``season_average`` (the mean of the last full season for every step).
 
+Every method reads its training slice with the slice's missing values filled from the slice
+alone (:mod:`runner.forecasters.gaps`), exactly as the per-series models see it; a slice without
+any observed value cannot be forecast.
+
 The built-ins load through :mod:`runner.forecasters.registry` like any plugin, and also honour the
 per-series protocol (``fit`` / ``predict``) so the conformance checks apply to them.
 """
@@ -35,6 +39,7 @@ from statistics import NormalDist
 import numpy as np
 
 from runner.forecasters.contract import Forecast
+from runner.forecasters.gaps import SliceFill
 from runner.forecasters.slices import SliceSummary, chunks, padded, summarise
 
 
@@ -80,13 +85,19 @@ class _Baseline:
         levels: tuple[float, ...] = (),
         summary: SliceSummary | None = None,
     ) -> BatchForecast:
-        """Forecast every slice ``values[starts[i]:ends[i]]`` ``horizon`` steps ahead."""
+        """Forecast every slice ``values[starts[i]:ends[i]]`` ``horizon`` steps ahead.
+
+        ``summary`` (from :func:`~runner.forecasters.slices.summarise` on the same slices)
+        saves recomputing the per-slice statistics.
+        """
         starts = np.asarray(starts, dtype=np.int64)
         ends = np.asarray(ends, dtype=np.int64)
+        fill = SliceFill(values)
         if summary is None:
-            summary = summarise(values, starts, ends, season)
-        point, sigma = self._point_and_sigma(values, starts, ends, horizon, season, summary)
-        ok = summary.length >= self.min_length(season)
+            summary = summarise(fill, starts, ends, season)
+        point, sigma = self._point_and_sigma(fill, starts, ends, horizon, season, summary)
+        long_enough = summary.length >= self.min_length(season)
+        ok = long_enough & (summary.observed > 0)
         point[~ok] = np.nan
         n_levels = len(levels)
         if sigma is None or n_levels == 0:
@@ -99,12 +110,14 @@ class _Baseline:
         message = (
             f"{type(self).__name__} needs at least {self.min_length(season)} training "
             f"observations"
+            if not long_enough.all()
+            else "the training slice has no observed value (every one is missing)"
         )
         return BatchForecast(point, lower, upper, ok, "" if ok.all() else message)
 
     def _point_and_sigma(
         self,
-        values: np.ndarray,
+        values: SliceFill,
         starts: np.ndarray,
         ends: np.ndarray,
         horizon: int,
@@ -152,6 +165,15 @@ class _Baseline:
         return f"{type(self).__name__}({params})"
 
 
+def _last_values(
+    values: SliceFill, idx: np.ndarray, starts: np.ndarray, ends: np.ndarray
+) -> np.ndarray:
+    """Filled values at ``idx`` (n, k) of each slice; positions before a too-short slice's
+    start are read as its start (the task is failed anyway)."""
+    idx = np.maximum(idx, starts[:, None])
+    return values.take(idx, starts[:, None], ends[:, None]).astype(float)
+
+
 def _steps(horizon: int) -> np.ndarray:
     return np.arange(1, horizon + 1, dtype=float)
 
@@ -189,7 +211,7 @@ class SeasonalNaive(_Baseline):
         m = max(int(season), 1)
         h0 = np.arange(horizon)
         idx = ends[:, None] - m + (h0 % m)[None, :]
-        point = values[np.clip(idx, 0, len(values) - 1)].astype(float)
+        point = _last_values(values, idx, starts, ends)
         k = h0 // m
         with np.errstate(invalid="ignore", divide="ignore"):
             sigma = np.sqrt(s.seasonal_sq / (s.length - m))
@@ -248,7 +270,7 @@ class SeasonAverage(_Baseline):
     def _point_and_sigma(self, values, starts, ends, horizon, season, s):
         m = max(int(season), 1)
         idx = ends[:, None] - m + np.arange(m)[None, :]
-        last_season = values[np.clip(idx, 0, len(values) - 1)]
+        last_season = _last_values(values, idx, starts, ends)
         return np.repeat(last_season.mean(axis=1)[:, None], horizon, axis=1), None
 
 
@@ -275,7 +297,7 @@ class MovingAverage(_Baseline):
         out = np.empty(len(starts))
         for part in chunks(np.maximum(ends - k, starts), ends):
             idx = ends[part, None] - k + np.arange(k)[None, :]
-            win = values[np.clip(idx, 0, len(values) - 1)]
+            win = _last_values(values, idx, starts[part], ends[part])
             if self.stat == "mean":
                 out[part] = win.mean(axis=1)
             elif self.stat == "median":

@@ -71,6 +71,8 @@ def manifest(ev: Evaluation) -> dict[str, Any]:
                 "fingerprint": dr.plan.panel.fingerprint,
                 "series": dr.plan.panel.n_series,
                 "observations": int(len(dr.plan.panel.values)),
+                # missing actuals in test blocks (missing: interpolate): left out of the scores
+                "unscored_actuals": dr.unscored_actuals,
             }
             for dr, ds in zip(ev.datasets, cfg.datasets)
         },

@@ -29,6 +29,11 @@ definition gives the score of a task (reduced over its steps) and the score of a
 
 Undefined values (a zero scale, y = 0 for mape, a constant test block for r2) are NaN, never
 inf; :func:`score_tasks` reports which tasks produced them so the caller can warn.
+
+A missing actual (NaN in ``actual``, from a dataset read with ``missing: interpolate``) is not
+scored: a task's score is the reduction over its observed steps only, a step's score over the
+tasks observed at that step, and a task without any observed actual has no score (NaN, not
+counted as undefined).
 """
 
 from __future__ import annotations
@@ -124,7 +129,7 @@ def _interval_loss(
     if base == "coverage":
         inside = (actual >= lower) & (actual <= upper)
         out = 100.0 * inside.astype(float)
-        out[np.isnan(lower) | np.isnan(upper)] = np.nan
+        out[np.isnan(lower) | np.isnan(upper) | np.isnan(actual)] = np.nan
         return out
     if base == "winkler":
         below = np.clip(lower - actual, 0, None)
@@ -137,12 +142,23 @@ def _interval_loss(
     return (lo + hi) / 2.0
 
 
-def _reduce(column: str, loss: np.ndarray, axis: int) -> np.ndarray:
+def _reduce(
+    column: str, loss: np.ndarray, axis: int, observed: np.ndarray | None = None
+) -> np.ndarray:
     # an all-NaN column (a forecaster without intervals) is simply NaN: no warning wanted
-    with np.errstate(invalid="ignore"), warnings.catch_warnings():
+    with np.errstate(invalid="ignore", divide="ignore"), warnings.catch_warnings():
         warnings.simplefilter("ignore", RuntimeWarning)
-        # a NaN anywhere in a task's block makes the task's score NaN (undefined, not skipped)
-        mean = loss.mean(axis=axis) if axis == 1 else np.nanmean(loss, axis=axis)
+        if axis == 1:
+            # a NaN at an observed step makes the task's score NaN (undefined, not skipped);
+            # steps whose actual is missing are not scored
+            if observed is None or observed.all():
+                mean = loss.mean(axis=1)
+            else:
+                count = observed.sum(axis=1)
+                mean = np.where(observed, loss, 0.0).sum(axis=1) / count
+                mean[count == 0] = np.nan
+        else:
+            mean = np.nanmean(loss, axis=axis)
     if column in ("rmse", "rmsse"):
         return np.sqrt(mean)
     return mean
@@ -177,24 +193,29 @@ def score_tasks(
     out: dict[str, Scored] = {}
     failed = np.isnan(forecast).any(axis=1)
     ok = ~failed
+    observed = ~np.isnan(actual)
+    scored = observed.any(axis=1)  # a task whose actuals are all missing has no score
     for col in cols:
         base, _, lv = col.partition("_")
         if base in INTERVAL_METRICS:
             i = levels.index(float(lv))
             loss = _interval_loss(base, float(lv), actual, lower[i], upper[i])
         elif col == "r2":
-            sse = ((actual - forecast) ** 2).sum(axis=1)
-            sst = ((actual - actual.mean(axis=1, keepdims=True)) ** 2).sum(axis=1)
+            with np.errstate(invalid="ignore", divide="ignore"):
+                a = np.where(observed, actual, 0.0)
+                sse = np.where(observed, (actual - forecast) ** 2, 0.0).sum(axis=1)
+                mean = a.sum(axis=1) / observed.sum(axis=1)
+                sst = np.where(observed, (a - mean[:, None]) ** 2, 0.0).sum(axis=1)
             per_task = 1.0 - _safe_div(sse, sst)
-            per_task[failed] = np.nan
-            undefined = ok & np.isnan(per_task)
+            per_task[failed | ~scored] = np.nan
+            undefined = ok & scored & np.isnan(per_task)
             out[col] = Scored(per_task, np.full(actual.shape[1], np.nan), undefined)
             continue
         else:
             loss = pointwise_loss(col, actual, forecast, mase_scale, rmsse_scale)
-        per_task = _reduce(col, loss, axis=1)
+        per_task = _reduce(col, loss, axis=1, observed=observed)
         per_task[failed] = np.nan
-        undefined = ok & np.isnan(per_task)
+        undefined = ok & scored & np.isnan(per_task)
         if base in INTERVAL_METRICS:
             # a forecaster without intervals has NaN bounds everywhere: not "undefined"
             undefined &= ~np.isnan(lower[i]).all(axis=1)
