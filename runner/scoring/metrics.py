@@ -83,6 +83,30 @@ def info(column: str) -> MetricInfo:
     return MetricInfo("lower")
 
 
+#: Relative change of a leaderboard mean that ``castgrid diff`` reads as numerical noise from
+#: another platform (CPU, BLAS kernel), not as a real change. Measured on the demo across
+#: OpenBLAS kernels (README, "Reproducibility"): the largest difference of a score mean was
+#: about a tenth of this; a change that matters to a verdict is far larger.
+NOISE_RELATIVE = 1e-3
+
+
+def noise_tolerance(column: str, value: float, tasks: int, horizon: int, folds: int) -> float:
+    """The largest change of a leaderboard mean of ``column`` that is numerical noise.
+
+    ``value`` is the old mean; ``tasks`` / ``horizon`` / ``folds`` describe what it averages.
+    Every continuous metric allows :data:`NOISE_RELATIVE` of its value. Coverage counts hits,
+    so the smallest change it can make is one actual crossing an interval bound; it allows one
+    such crossing per fold: ``100 * folds / (horizon * tasks)`` percentage points.
+    """
+    if not np.isfinite(value):
+        return 0.0
+    if column.partition("_")[0] == "coverage":
+        if tasks <= 0 or horizon <= 0:
+            return 0.0
+        return 100.0 * max(folds, 1) / (horizon * tasks)
+    return NOISE_RELATIVE * abs(value)
+
+
 def _safe_div(num: np.ndarray, den: np.ndarray) -> np.ndarray:
     with np.errstate(divide="ignore", invalid="ignore"):
         out = num / den
