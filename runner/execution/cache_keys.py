@@ -45,6 +45,7 @@ def task_keys(tasks: Sequence[ModelTask], shared: SharedData) -> list[bytes]:
     """
     import numpy as np
 
+    from runner.execution.tasks import training_values
     from runner.forecasters.registry import accepts_covariates, identity
 
     idents: dict[int, tuple[bytes, bool]] = {}
@@ -62,8 +63,8 @@ def task_keys(tasks: Sequence[ModelTask], shared: SharedData) -> list[bytes]:
         ident, uses_cov = idents[task.forecaster]
         vk = (task.dataset, task.start, task.end)
         if vk not in value_digests:
-            y = np.ascontiguousarray(shared.values[task.dataset][task.start : task.end],
-                                     dtype=np.float64)
+            # what the forecaster sees: the slice with its gaps filled from the slice alone
+            y = np.ascontiguousarray(training_values(task, shared), dtype=np.float64)
             value_digests[vk] = _digest(memoryview(y).cast("B"))
         cov_digest = b"not-given"
         cov = shared.covariates[task.dataset]

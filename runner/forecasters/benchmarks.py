@@ -38,6 +38,10 @@ y_{t-k}..y_{t-1}), t = k+1..T: T - k residuals, K = 0 (k is chosen, not estimate
 holds for the moving median. The moving mode (meant for counts) gives no interval: a normal
 interval would misstate a discrete distribution, and no published one exists.
 
+Every method reads its training slice with the slice's missing values filled from the slice
+alone (:mod:`runner.forecasters.gaps`), exactly as the per-series models see it; a slice without
+any observed value cannot be forecast.
+
 The built-ins load through :mod:`runner.forecasters.registry` like any plugin, and also honour the
 per-series protocol (``fit`` / ``predict``) so the conformance checks apply to them.
 """
@@ -49,6 +53,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from runner.forecasters.contract import Forecast
+from runner.forecasters.gaps import SliceFill
 from runner.forecasters.intervals import z_values
 from runner.forecasters.slices import CHUNK_ELEMENTS, SliceSummary, chunks, padded, summarise
 
@@ -90,16 +95,22 @@ class _Baseline:
         levels: tuple[float, ...] = (),
         summary: SliceSummary | None = None,
     ) -> BatchForecast:
-        """Forecast every slice ``values[starts[i]:ends[i]]`` ``horizon`` steps ahead."""
+        """Forecast every slice ``values[starts[i]:ends[i]]`` ``horizon`` steps ahead.
+
+        ``summary`` (from :func:`~runner.forecasters.slices.summarise` on the same slices)
+        saves recomputing the per-slice statistics.
+        """
         starts = np.asarray(starts, dtype=np.int64)
         ends = np.asarray(ends, dtype=np.int64)
+        fill = SliceFill(values)
         if summary is None:
-            summary = summarise(values, starts, ends, season)
+            summary = summarise(fill, starts, ends, season)
         n_levels = len(levels)
         point, sigma = self._point_and_sigma(
-            values, starts, ends, horizon, season, summary, with_sigma=n_levels > 0
+            fill, starts, ends, horizon, season, summary, with_sigma=n_levels > 0
         )
-        ok = summary.length >= self.min_length(season)
+        long_enough = summary.length >= self.min_length(season)
+        ok = long_enough & (summary.observed > 0)
         point[~ok] = np.nan
         if sigma is None or n_levels == 0:
             lower = np.full((n_levels,) + point.shape, np.nan)
@@ -111,12 +122,14 @@ class _Baseline:
         message = (
             f"{type(self).__name__} needs at least {self.min_length(season)} training "
             f"observations"
+            if not long_enough.all()
+            else "the training slice has no observed value (every one is missing)"
         )
         return BatchForecast(point, lower, upper, ok, "" if ok.all() else message)
 
     def _point_and_sigma(
         self,
-        values: np.ndarray,
+        values: SliceFill,
         starts: np.ndarray,
         ends: np.ndarray,
         horizon: int,
@@ -170,6 +183,15 @@ class _Baseline:
         return f"{type(self).__name__}({params})"
 
 
+def _last_values(
+    values: SliceFill, idx: np.ndarray, starts: np.ndarray, ends: np.ndarray
+) -> np.ndarray:
+    """Filled values at ``idx`` (n, k) of each slice; positions before a too-short slice's
+    start are read as its start (the task is failed anyway)."""
+    idx = np.maximum(idx, starts[:, None])
+    return values.take(idx, starts[:, None], ends[:, None]).astype(float)
+
+
 def _steps(horizon: int) -> np.ndarray:
     return np.arange(1, horizon + 1, dtype=float)
 
@@ -207,7 +229,7 @@ class SeasonalNaive(_Baseline):
         m = max(int(season), 1)
         h0 = np.arange(horizon)
         idx = ends[:, None] - m + (h0 % m)[None, :]
-        point = values[np.clip(idx, 0, len(values) - 1)].astype(float)
+        point = _last_values(values, idx, starts, ends)
         k = h0 // m
         with np.errstate(invalid="ignore", divide="ignore"):
             sigma = np.sqrt(s.seasonal_sq / (s.length - m))
@@ -255,7 +277,8 @@ class Drift(_Baseline):
 
 
 def moving_error_sigma(
-    values: np.ndarray, starts: np.ndarray, ends: np.ndarray, k: int, stat: str = "mean"
+    values: np.ndarray | SliceFill, starts: np.ndarray, ends: np.ndarray, k: int,
+    stat: str = "mean",
 ) -> np.ndarray:
     """Root mean square of the one-step in-sample errors of a moving ``stat`` of ``k`` values.
 
@@ -304,7 +327,7 @@ class SeasonAverage(_Baseline):
     def _point_and_sigma(self, values, starts, ends, horizon, season, s, with_sigma=True):
         m = max(int(season), 1)
         idx = ends[:, None] - m + np.arange(m)[None, :]
-        last_season = values[np.clip(idx, 0, len(values) - 1)]
+        last_season = _last_values(values, idx, starts, ends)
         point = np.repeat(last_season.mean(axis=1)[:, None], horizon, axis=1)
         if not with_sigma:
             return point, None
@@ -339,7 +362,7 @@ class MovingAverage(_Baseline):
         out = np.empty(len(starts))
         for part in chunks(np.maximum(ends - k, starts), ends):
             idx = ends[part, None] - k + np.arange(k)[None, :]
-            win = values[np.clip(idx, 0, len(values) - 1)]
+            win = _last_values(values, idx, starts[part], ends[part])
             if self.stat == "mean":
                 out[part] = win.mean(axis=1)
             elif self.stat == "median":
