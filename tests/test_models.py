@@ -157,9 +157,6 @@ def ets_ml_fit(make_model):
     return again if again.llf > best.llf else best
 
 
-def test_ets_linear_model_has_analytic_intervals_equal_to_statsmodels(air):
-
-
 def _class1_variance_factor(alpha, beta, gamma, phi, m, h):
     """1 + sum_{j=1}^{h-1} c_j^2, c_j = w' F^{j-1} g: the h-step forecast variance over sigma^2
     of the linear ETS models (Hyndman, Koehler, Ord & Snyder 2008, ch. 6, class 1), from the
