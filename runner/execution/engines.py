@@ -1,7 +1,9 @@
-"""Running the per-series model tasks: in this process, on local worker processes, or on dask.
+"""Running model tasks (per series, and panel tasks): in this process, on local worker processes,
+or on dask.
 
 Three ways, one result: every way produces the same :class:`~runner.execution.tasks.TaskOutcome`
-for the same task, since every fit goes through :func:`runner.execution.tasks.run_model_task`.
+for the same task, since every fit goes through :func:`runner.execution.tasks.run_task` (a
+per-series task, or a panel task: one fit per dataset and origin on every series).
 
 * ``jobs=1``: in this process, one task after another. A fit past ``fit_timeout`` is stopped by a
   ``SIGALRM`` timer that raises inside it; this stops Python code and sleeps, not a fit stuck
@@ -32,7 +34,7 @@ import os
 from collections.abc import Callable, Sequence
 
 from runner.config.model import check_jobs
-from runner.execution.tasks import ModelTask, SharedData, TaskOutcome, failed
+from runner.execution.tasks import SharedData, Task, TaskOutcome, failed
 
 OnDone = Callable[[TaskOutcome], None]
 
@@ -53,7 +55,7 @@ def not_run(index: int) -> TaskOutcome:
 
 
 def execute(
-    tasks: Sequence[ModelTask],
+    tasks: Sequence[Task],
     shared: SharedData,
     *,
     jobs: int = 1,

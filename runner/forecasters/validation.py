@@ -17,8 +17,8 @@ from typing import Any
 
 from runner.config import Config, ForecasterSpec
 from runner.errors import ConfigError, PluginError
-from runner.forecasters.contract import protocol_problem
-from runner.forecasters.registry import entry_of, load_entry
+from runner.forecasters.contract import panel_protocol_problem, protocol_problem
+from runner.forecasters.registry import PANEL_PLUGIN, PLUGIN, entry_of, is_panel, load_entry
 from runner.forecasters.specs import baseline_specs, candidate_specs, check_specs
 
 
@@ -64,7 +64,7 @@ def validate_forecasters(cfg: Config, config_path: str | Path) -> None:
     check_specs(cfg, src)
     for spec, loc, source in _locations(cfg):
         entry = entry_of(spec)
-        field = f"{loc}.entry" if spec.kind == "plugin" else f"{loc} ({spec.kind})"
+        field = f"{loc}.entry" if spec.kind in (PLUGIN, PANEL_PLUGIN) else f"{loc} ({spec.kind})"
         try:
             factory = load_entry(entry)
         except PluginError as exc:
@@ -95,6 +95,6 @@ def validate_forecasters(cfg: Config, config_path: str | Path) -> None:
             raise PluginError(
                 f"{src}: {field}: building {spec.name} raised {type(exc).__name__}: {exc}"
             ) from None
-        problem = protocol_problem(obj)
+        problem = panel_protocol_problem(obj) if is_panel(spec) else protocol_problem(obj)
         if problem is not None:
             raise PluginError(f"{src}: {field}: {entry} {problem}")
