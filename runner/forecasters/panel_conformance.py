@@ -469,6 +469,18 @@ def check_intervals_ordered(c: PanelSubject) -> None:
             raise _CheckFailed("the 80% interval is not inside the 95% interval")
 
 
+def _one_thread() -> Any:
+    """Hold BLAS and OpenMP to one thread while the checks run, as castgrid's engines do for
+    every fit: a model's threads on the small example data only wait on each other."""
+    try:
+        from threadpoolctl import threadpool_limits
+    except ImportError:  # optional: without it the libraries keep their own thread counts
+        from contextlib import nullcontext
+
+        return nullcontext()
+    return threadpool_limits(1)
+
+
 #: The names of the panel checks, in the order they run.
 PANEL_CHECKS: tuple[str, ...] = tuple(_check_name(fn) for fn in _CHECK_FUNCTIONS)
 
@@ -558,8 +570,9 @@ def check_panel_forecaster(
         msg = f"building the forecaster raised {type(exc).__name__}: {exc}"
         report.checks = [CheckResult(_check_name(fn), "fail", msg) for fn in chosen]
     else:
-        for fn in chosen:
-            _run_one(report, fn, subject)
+        with _one_thread():
+            for fn in chosen:
+                _run_one(report, fn, subject)
     if raise_on_failure and report.failed:
         details = "; ".join(f"{r.name} ({r.message})" for r in report.checks if r.status == "fail")
         raise AssertionError(
