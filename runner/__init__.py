@@ -7,7 +7,7 @@ The public API::
     runner.Forecast                  what a forecaster's predict may return
     runner.PanelHistory              what a panel forecaster's fit receives (kind: panel_plugin)
     runner.PanelForecast             what a panel forecaster's predict may return
-    runner.ConfigError, DataError, PluginError
+    runner.ConfigError, DataError, PluginError, PathError
 
 Names are imported on first use (PEP 562), so that worker processes and the command line do
 not pay for pandas and the pipeline unless they need them.
@@ -28,6 +28,7 @@ _EXPORTS = {
     "Forecast": "runner.forecasters.contract",
     "PanelForecast": "runner.forecasters.contract",
     "PanelHistory": "runner.forecasters.contract",
+    "PathError": "runner.errors",
     "PluginError": "runner.errors",
     "RunResult": "runner.pipeline",
     "load_config": "runner.config",

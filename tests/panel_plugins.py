@@ -87,14 +87,13 @@ class FailsAtOrigin(LastValues):
 
 
 class SleepsAtOrigin(LastValues):
-    """Sleeps ``seconds`` in fit at the origin at position ``when``; with ``swallow`` it
-    swallows every exception meanwhile (so only killing its process stops it)."""
+    """Sleeps ``seconds`` in fit at the origin at position ``when``, swallowing every exception
+    meanwhile (so only killing its process stops it)."""
 
-    def __init__(self, when: int = -1, seconds: float = 600.0, swallow: bool = True) -> None:
+    def __init__(self, when: int = -1, seconds: float = 600.0) -> None:
         super().__init__()
         self.when = when
         self.seconds = seconds
-        self.swallow = swallow
 
     def fit(self, history):
         if history.origin == self.when:
@@ -103,8 +102,7 @@ class SleepsAtOrigin(LastValues):
                 try:
                     time.sleep(0.05)
                 except BaseException:  # noqa: B036 - the point of this plugin
-                    if not self.swallow:
-                        raise
+                    pass
         return super().fit(history)
 
 

@@ -8,7 +8,7 @@ import numpy as np
 import pytest
 
 from runner.forecasters.contract import Forecast
-from runner.forecasters.registry import BUILTIN, load_entry
+from runner.forecasters.registry import BUILTIN, KINDS, load_entry
 from runner.testing import (
     CHECKS,
     RecordingForecaster,
@@ -22,7 +22,13 @@ from runner.testing import (
 FAST_PARAMS = {"arima_search": {"p_up_to": 1, "q_up_to": 1, "fits_up_to": 6, "seasonal": False}}
 
 
-@pytest.mark.parametrize("kind", sorted(BUILTIN))
+# Derived kinds (combinations, selections) and recorded ones have no fit / predict: their
+# forecasts are computed from other forecasters' (tests/test_derived.py) or read from a file
+# (tests/test_recorded.py).
+FORECASTING_KINDS = sorted(k.name for k in KINDS if not (k.derived or k.from_file))
+
+
+@pytest.mark.parametrize("kind", FORECASTING_KINDS)
 def test_every_builtin_passes(kind):
     factory = load_entry(BUILTIN[kind])
     report = check_forecaster(factory, params=FAST_PARAMS.get(kind, {}))

@@ -83,12 +83,16 @@ def run(cfg: Path, out: Path):
 def origins_of(out: Path) -> dict[str, list[str]]:
     scores = pq.read_table(out / "scores.parquet").to_pandas()
     line = scores[scores["forecaster"] == "line"]
-    return {str(s): sorted(g["origin"]) for s, g in line.groupby("series", observed=True)}
+    # scores.parquet stores origins as real timestamps; compare them as ISO dates
+    return {str(s): sorted(g["origin"].dt.strftime("%Y-%m-%d"))
+            for s, g in line.groupby("series", observed=True)}
 
 
 def line_forecasts(out: Path) -> pd.DataFrame:
     fc = pq.read_table(out / "forecasts.parquet").to_pandas()
-    fc = fc[fc["forecaster"] == "line"].astype({"series": str, "origin": str, "time": str})
+    fc = fc[fc["forecaster"] == "line"].astype({"series": str})
+    fc["origin"] = fc["origin"].dt.strftime("%Y-%m-%d")
+    fc["time"] = fc["time"].dt.strftime("%Y-%m-%d")
     return fc.set_index(["series", "origin", "step"])["forecast"].sort_index()
 
 

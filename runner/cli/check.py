@@ -15,12 +15,17 @@ def main(args: argparse.Namespace) -> int:
     cached."""
     import numpy as np
 
+    from runner.cli._summary import summarise
     from runner.pipeline import prepare
 
     plan = prepare(args.config)
     cfg = plan.config
     print(f"experiment {cfg.experiment}: horizon {cfg.horizon}, {cfg.windows.scheme} windows, "
           f"ranked by {cfg.rank_by}")
+    for note in plan.all_notes():
+        print(f"note: {note}")
+    for warning in plan.warnings:
+        print(f"warning: {warning}")
     for dp in plan.datasets:
         p = dp.panel
         folds = np.bincount(dp.series, minlength=p.n_series)[np.unique(dp.series)]
@@ -40,9 +45,9 @@ def main(args: argparse.Namespace) -> int:
         where = ("each series' own, from its last observation" if cfg.windows.align == "end"
                  else "shared by every series")
         print(f"  origins: {len(labels)} ({span}; {where})")
-        for s in dp.skipped:
+        for s in summarise(dp.skipped):
             print(f"  too short: {s}")
-        for note in p.notes:
+        for note in summarise(p.notes):
             print(f"  note: {note}")
         names = [plan.forecasters[i].name for i in dp.forecasters]
         print(f"  forecasters ({len(names)}): {', '.join(names)}; reference {dp.reference}")

@@ -53,7 +53,10 @@ def config_schema() -> dict[str, Any]:
     }
     names = [m.name for m in METRICS]
     props["metrics"]["anyOf"][0]["items"] = {"type": "string", "enum": names}
-    props["rank_by"]["enum"] = [m.name for m in METRICS if m.can_rank]
+    # rank_by may be left out (null): the first branch is the string one
+    props["rank_by"]["anyOf"][0]["enum"] = [m.name for m in METRICS if m.can_rank]
+    # levels are percentages; a fraction such as 0.8 is refused (README, "The config")
+    props["intervals"]["items"].update({"minimum": 1, "exclusiveMaximum": 100})
     return schema
 
 

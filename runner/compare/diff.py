@@ -183,6 +183,8 @@ class DatasetDiff:
     status: str  # both | added | gone
     data_changed: bool = False
     data_note: str = ""
+    #: (recorded candidate, whether its forecasts file changed, the line diff prints)
+    files: list[tuple[str, bool, str]] = field(default_factory=list)
     reference: tuple[str | None, str | None] = (None, None)
     added: list[str] = field(default_factory=list)
     gone: list[str] = field(default_factory=list)
@@ -191,6 +193,8 @@ class DatasetDiff:
     def changed(self) -> bool:
         """Whether anything at all differs for this dataset."""
         if self.status != "both" or self.data_changed or self.added or self.gone:
+            return True
+        if any(changed for _, changed, _ in self.files):
             return True
         if self.reference[0] != self.reference[1]:
             return True
@@ -252,6 +256,38 @@ def _data_note(old: dict[str, Any], new: dict[str, Any]) -> str:
     return "; ".join(parts)
 
 
+def _forecast_files(
+    old: dict[str, Any], new: dict[str, Any], dataset: str
+) -> list[tuple[str, bool, str]]:
+    """The forecasts files of a dataset's recorded candidates (manifest ``recorded``), each
+    with whether its content changed: a changed file is told apart from changed data."""
+    def of(manifest: dict[str, Any]) -> dict[str, dict[str, Any]]:
+        files = manifest.get("recorded") or {}
+        return {k: v for k, v in files.items()
+                if isinstance(v, dict) and v.get("dataset") == dataset}
+
+    before, after = of(old), of(new)
+    out = []
+    for name, n in after.items():
+        o = before.get(name)
+        if o is None:
+            out.append((name, False, f"{n.get('path')}, {n.get('rows')} rows (not in the old "
+                                     "run)"))
+            continue
+        path = _change(o.get("path"), n.get("path"))
+        rows = _change(o.get("rows"), n.get("rows"))
+        if o.get("fingerprint") == n.get("fingerprint"):
+            out.append((name, False, f"unchanged ({path}, {rows} rows)"))
+        else:
+            fp = f"{str(o.get('fingerprint'))[:12]} -> {str(n.get('fingerprint'))[:12]}"
+            out.append((name, True, f"CHANGED ({path}, fingerprint {fp}; rows {rows})"))
+    return out
+
+
+def _change(a: Any, b: Any) -> str:
+    return f"{a}" if a == b else f"{a} -> {b}"
+
+
 def _origins_text(origins: Any) -> str:
     """A dataset's origins as the manifest records them: ``8 (2020-12-01 to 2024-06-01)``."""
     if not isinstance(origins, dict):
@@ -284,6 +320,7 @@ def compare(old: Results, new: Results) -> Diff:
             dd.data_changed = old_fp.get(name) != new_fp.get(name)
         dd.data_note = _data_note(old.manifest["data"].get(name) or {},
                                   new.manifest["data"].get(name) or {})
+        dd.files = _forecast_files(old.manifest, new.manifest, name)
         old_rows, new_rows = old.rows(name), new.rows(name)
         dd.added = [f for f in new_rows if f not in old_rows]
         dd.gone = [f for f in old_rows if f not in new_rows]
@@ -390,6 +427,8 @@ def format_diff(d: Diff, markdown: bool = False, fail_pct: float | None = None) 
             else:
                 lines.append(f"{bullet}data: unchanged ({ds.data_note})" if ds.data_note
                              else f"{bullet}data: unchanged")
+        for candidate, _, text in ds.files:
+            lines.append(f"{bullet}forecasts file of {candidate}: {text}")
         ro, rn = ds.reference
         if ro != rn and ds.status == "both":
             lines.append(f"{bullet}reference: {ro} -> {rn}")
@@ -444,7 +483,8 @@ def format_diff(d: Diff, markdown: bool = False, fail_pct: float | None = None) 
 def _summary(d: Diff) -> str:
     """One closing line: nothing changed, or what kinds of change there were."""
     if not d.changed():
-        return "no change: same config, data, forecasters and scores"
+        files = " forecasts files," if any(ds.files for ds in d.datasets) else ""
+        return f"no change: same config, data,{files} forecasters and scores"
     parts = []
     if d.config_changed:
         parts.append("config changed")
@@ -453,6 +493,9 @@ def _summary(d: Diff) -> str:
     data = [ds.name for ds in d.datasets if ds.data_changed]
     if data:
         parts.append(f"data changed for {', '.join(data)}")
+    files = [name for ds in d.datasets for name, changed, _ in ds.files if changed]
+    if files:
+        parts.append(f"forecasts file changed for {', '.join(files)}")
     for status in ("added", "gone"):
         names = [ds.name for ds in d.datasets if ds.status == status]
         if names:

@@ -20,6 +20,8 @@ from pydantic import (
     model_validator,
 )
 
+from runner.errors import brief
+
 #: Names an earlier castgrid release accepted, and the names that replaced them. A config that
 #: still uses one gets a one-line error naming the new name, never a silent fallback.
 RENAMED_KINDS = {"window_average": "moving_average", "auto_arima": "arima_search"}
@@ -33,6 +35,8 @@ RENAMED_PARAMS = {
 #: Kinds whose forecaster is the user's own class, named by ``entry: module:attribute``:
 #: ``plugin`` (one series per fit) and ``panel_plugin`` (every series of a dataset per fit).
 ENTRY_KINDS = ("plugin", "panel_plugin")
+#: ``windows.origins: from_file``: the origins are those of the recorded candidates' files.
+FROM_FILE = "from_file"
 _SHARE = re.compile(r"^\s*(\d+(?:\.\d+)?)\s*%\s*$")
 _NAME = re.compile(r"^[A-Za-z0-9][A-Za-z0-9._-]*$")
 
@@ -40,12 +44,15 @@ _NAME = re.compile(r"^[A-Za-z0-9][A-Za-z0-9._-]*$")
 def _simple_name(v: str) -> str:
     """Names end up in folder names and table cells: keep them to a safe alphabet."""
     if not _NAME.match(v):
-        raise ValueError(f"expected letters, digits, '.', '_' or '-', got {json.dumps(v)}")
+        raise ValueError(f"expected letters, digits, '.', '_' or '-', got {brief(v)}")
     return v
 
 
 class _Strict(BaseModel):
-    model_config = ConfigDict(extra="forbid", frozen=True)
+    # strict: YAML already gives every value its type, so a value of another type is a mistake
+    # to report, not to convert (`horizon: yes` is true, not 1; `horizon: "12"` is text).
+    # Floats still accept integers (`fit_timeout: 60`).
+    model_config = ConfigDict(extra="forbid", frozen=True, strict=True)
 
 
 class DatasetConfig(_Strict):
@@ -105,7 +112,9 @@ class WindowsConfig(_Strict):
     An origin is the time of the last training observation. Origins are points on the
     dataset's time axis shared by all its series: counted from the dataset's first time by
     default, or given as ``origins`` (a list of times) or ``first_origin`` (then every
-    ``step``). ``align: end`` instead ties them to each series' last observation.
+    ``step``). ``origins: from_file`` takes them from the forecasts files of the config's
+    ``recorded`` candidates (:mod:`runner.forecasters.recorded`). ``align: end`` instead ties
+    them to each series' last observation.
     """
 
     scheme: Literal["expanding", "sliding"] = "expanding"
@@ -114,21 +123,21 @@ class WindowsConfig(_Strict):
     folds: int | None = Field(default=None, ge=1)
     gap: int = Field(default=0, ge=0)
     align: Literal["start", "end"] = "start"
-    origins: list[int | str] | None = None
+    origins: list[int | str] | Literal["from_file"] | None = None
     first_origin: int | str | None = None
 
     @field_validator("train", mode="before")
     @classmethod
     def _train_count_or_share(cls, v: Any) -> int | str:
         if isinstance(v, bool):
-            raise ValueError(f'expected a count >= 1 or a share like "50%", got {json.dumps(v)}')
+            raise ValueError(f'expected a count >= 1 or a share like "50%", got {brief(v)}')
         if isinstance(v, int) and v >= 1:
             return v
         if isinstance(v, str):
             m = _SHARE.match(v)
             if m and 0 < float(m.group(1)) < 100:
                 return f"{float(m.group(1)):g}%"
-        raise ValueError(f'expected a count >= 1 or a share like "50%", got {json.dumps(v)}')
+        raise ValueError(f'expected a count >= 1 or a share like "50%", got {brief(v)}')
 
     @field_validator("first_origin", mode="before")
     @classmethod
@@ -138,10 +147,12 @@ class WindowsConfig(_Strict):
     @field_validator("origins", mode="before")
     @classmethod
     def _origins_are_times(cls, v: Any) -> Any:
-        if v is None:
-            return None
+        if v is None or v == FROM_FILE:
+            return v
         if not isinstance(v, list) or not v:
-            raise ValueError(f"expected a non-empty list of times, got {_shown(v)}")
+            raise ValueError(
+                f"expected a non-empty list of times or {FROM_FILE}, got {_shown(v)}"
+            )
         times = [_config_time(x) for x in v]
         seen: set[Any] = set()
         for t in times:
@@ -215,7 +226,7 @@ class ExecutionConfig(_Strict):
     engine: Literal["local", "dask"] = "local"
     address: str | None = None
     cache: str | Literal[False] = "results/.cache"
-    fit_timeout: float = Field(default=120.0, gt=0)
+    fit_timeout: float = Field(default=120.0, gt=0, allow_inf_nan=False)
     on_error: Literal["record", "stop"] = "record"
 
     @field_validator("jobs")
@@ -226,8 +237,8 @@ class ExecutionConfig(_Strict):
     @field_validator("cache", mode="before")
     @classmethod
     def _cache_path_or_false(cls, v: Any) -> Any:
-        if v is True:
-            raise ValueError("expected a folder path or false, got true")
+        if not (v is False or isinstance(v, str)):
+            raise ValueError(f"expected a folder path or false, got {brief(v)}")
         return v
 
 
@@ -269,7 +280,7 @@ class ModelConfig(_Strict):
     def _grid_lists_not_empty(cls, v: dict[str, list[Any]]) -> dict[str, list[Any]]:
         for key, values in v.items():
             if not values:
-                raise ValueError(f"grid key {key!r}: expected a non-empty list of values")
+                raise ValueError(f"grid key {brief(key)}: expected a non-empty list of values")
         return v
 
     @model_validator(mode="after")
@@ -279,7 +290,7 @@ class ModelConfig(_Strict):
         if self.kind not in ENTRY_KINDS and self.entry:
             raise ValueError(f"entry is only for kind plugin or panel_plugin, not {self.kind}")
         if self.entry and not re.match(r"^[\w.]+:[\w.]+$", self.entry):
-            raise ValueError(f'entry: expected "module:attribute", got {self.entry!r}')
+            raise ValueError(f'entry: expected "module:attribute", got {brief(self.entry)}')
         for key in list(self.params) + list(self.grid):
             new = RENAMED_PARAMS.get(self.kind, {}).get(key)
             if new is not None:
@@ -287,7 +298,7 @@ class ModelConfig(_Strict):
                 raise ValueError(f"{where}.{key} of {self.kind} is now called {new!r}")
         overlap = sorted(set(self.params) & set(self.grid))
         if overlap:
-            raise ValueError(f"{overlap[0]!r} is in both params and grid; keep one")
+            raise ValueError(f"{brief(overlap[0])} is in both params and grid; keep one")
         return self
 
 
@@ -311,7 +322,9 @@ class Config(_Strict):
     models: list[ModelConfig] = Field(default_factory=list)
     #: None: the metric table's defaults (filled in by :func:`runner.pipeline.prepare`).
     metrics: list[str] | None = None
-    rank_by: str = "mase"
+    #: None: mase if listed, else the first listed metric that can rank (resolved by
+    #: :func:`runner.pipeline.prepare`, which says so in a note).
+    rank_by: str | None = None
     reference: str | None = None
     intervals: list[float] = Field(default_factory=list)
     execution: ExecutionConfig = Field(default_factory=ExecutionConfig)
@@ -328,18 +341,23 @@ class Config(_Strict):
         if v is None:
             return None
         if not isinstance(v, list):
-            raise ValueError(f"expected a list of baseline names, got {json.dumps(v)}")
+            raise ValueError(f"expected a list of baseline names, got {brief(v)}")
         out = []
         for item in v:
             if isinstance(item, str):
                 kind, params = item, {}
             elif isinstance(item, dict) and len(item) == 1:
                 kind, params = next(iter(item.items()))
-                params = params or {}
+                # `- naive:` (no value) is read as null; any other non-mapping is a mistake
+                params = {} if params is None else params
                 if not isinstance(params, dict):
-                    raise ValueError(f"{kind}: expected a mapping of parameters, got {params!r}")
+                    raise ValueError(
+                        f"{brief(kind)}: expected a mapping of parameters, got {brief(params)}"
+                    )
             else:
-                raise ValueError(f"expected a baseline name or {{name: {{params}}}}, got {item!r}")
+                raise ValueError(
+                    f"expected a baseline name or {{name: {{params}}}}, got {brief(item)}"
+                )
             if kind in RENAMED_KINDS:
                 raise ValueError(f"baseline {kind!r} is now called {RENAMED_KINDS[kind]!r}")
             out.append({"kind": kind, "params": params})
@@ -371,8 +389,15 @@ class Config(_Strict):
     @classmethod
     def _levels_in_range(cls, v: list[float]) -> list[float]:
         for level in v:
-            if not 0 < level < 100:
-                raise ValueError(f"expected interval levels between 0 and 100, got {level:g}")
+            if 0 < level < 1:
+                # 0.8 is an 80% interval written as a fraction; read literally it is a 0.8%
+                # interval whose coverage is near 0, which no one means
+                raise ValueError(
+                    f"levels are percentages between 1 and 100; {level:g} looks like a "
+                    f"fraction: write {level * 100:g}"
+                )
+            if not 1 <= level < 100:
+                raise ValueError(f"expected interval levels between 1 and 100, got {level:g}")
         if len(set(v)) != len(v):
             raise ValueError("an interval level is listed twice")
         return sorted(float(x) for x in v)
@@ -382,7 +407,7 @@ class Config(_Strict):
         names = [d.name for d in self.datasets]
         dup = sorted({n for n in names if names.count(n) > 1})
         if dup:
-            raise ValueError(f"datasets: name {dup[0]!r} is used twice")
+            raise ValueError(f"datasets: name {brief(dup[0])} is used twice")
         return self
 
     def dataset_season(self, dataset: DatasetConfig) -> int | None:

@@ -89,6 +89,35 @@ def cache_file(folder: str | Path) -> Path:
     return Path(folder) / CACHE_FILE
 
 
+def check_cache_folder(folder: str | Path) -> None:
+    """Raise :class:`~runner.errors.PathError` when the cache in ``folder`` cannot be used.
+
+    Run before any computing: the folder (or its nearest existing ancestor, where it will be
+    made) must be a writable folder, and the cache file, if there is one, a writable file.
+    """
+    from runner.errors import PathError
+
+    folder = Path(folder)
+    path = cache_file(folder)
+    advice = "set execution.cache to another folder or to false, or run with --no-cache"
+    if folder.exists() and not folder.is_dir():
+        raise PathError(f"{folder}: expected the forecast cache folder, found a file; {advice}")
+    if path.is_dir():
+        raise PathError(f"{path}: expected the forecast cache file, found a folder; {advice}")
+    if path.exists() and not os.access(path, os.R_OK | os.W_OK):
+        raise PathError(f"{path}: cannot write the forecast cache file (permission denied or "
+                        f"read-only); {advice}")
+    holder = folder.absolute()
+    while not holder.exists() and holder != holder.parent:
+        holder = holder.parent
+    if not holder.is_dir():
+        raise PathError(f"{holder}: expected a folder to hold the forecast cache, found a file; "
+                        f"{advice}")
+    if not os.access(holder, os.W_OK | os.X_OK):
+        raise PathError(f"{holder}: cannot write the forecast cache here (permission denied or "
+                        f"read-only); {advice}")
+
+
 def _move_aside(path: Path) -> Path:
     n = 1
     while Path(f"{path}.damaged-{n}").exists():

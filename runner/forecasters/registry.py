@@ -16,7 +16,7 @@ from functools import cache
 from typing import Any
 
 from runner.config import ForecasterSpec
-from runner.errors import PluginError
+from runner.errors import PluginError, brief, clip
 
 
 @dataclass(frozen=True)
@@ -26,6 +26,12 @@ class Kind:
     ``role`` is ``baseline`` (a benchmark, listed under ``baselines:``) or ``candidate`` (a model,
     listed under ``models:``). ``default`` benchmarks run when a config lists no baselines;
     ``seasonal_only`` ones need a season above 1 and are left out of the defaults otherwise.
+    ``derived`` candidates make no forecast of their own: their forecasts are computed from
+    other forecasters' forecasts of the same run (:mod:`runner.forecasters.derived`), so no
+    model task is built for them and they have no ``fit`` / ``predict``.
+    ``from_file`` candidates fit nothing: their forecasts are read from a file
+    (:mod:`runner.forecasters.recorded`), so no model task is built for them and they have no
+    ``fit`` / ``predict``.
     """
 
     name: str
@@ -34,11 +40,14 @@ class Kind:
     summary: str
     default: bool = False
     seasonal_only: bool = False
+    derived: bool = False
+    from_file: bool = False
 
 
 _B = "runner.forecasters.benchmarks"
 _M = "runner.forecasters.models"
 _I = "runner.forecasters.intermittent"
+_D = "runner.forecasters.derived"
 
 #: Every built-in kind. The config's kinds, the JSON Schema's enumerations, the default baseline
 #: list and the conformance tests all derive from this table.
@@ -66,6 +75,14 @@ KINDS: tuple[Kind, ...] = (
     Kind("theta", f"{_M}.theta:Theta", "candidate", "the theta method"),
     Kind("arima_search", f"{_M}.arima_search:ArimaSearch", "candidate",
          "ARIMA with orders chosen by a stepwise search per training window"),
+    Kind("combination", f"{_D}:Combination", "candidate",
+         "the mean or median of listed forecasters' forecasts of the same run (no refit)",
+         derived=True),
+    Kind("best_so_far", f"{_D}:BestSoFar", "candidate",
+         "per series, the listed forecaster that scored best at earlier folds only",
+         derived=True),
+    Kind("recorded", "runner.forecasters.recorded:Recorded", "candidate",
+         "forecasts made elsewhere, read from a file and scored like any other", from_file=True),
 )
 BY_KIND: dict[str, Kind] = {k.name: k for k in KINDS}
 #: ``kind`` -> ``module:attribute`` of every built-in.
@@ -79,6 +96,16 @@ PANEL_PLUGIN = "panel_plugin"
 def kinds_for(role: str) -> list[str]:
     """Names of the built-in kinds of ``role`` (``baseline`` or ``candidate``)."""
     return [k.name for k in KINDS if k.role == role]
+
+
+def is_derived(spec: ForecasterSpec) -> bool:
+    """True for candidates whose forecasts are computed from other forecasters' forecasts."""
+    kind = BY_KIND.get(spec.kind)
+    return kind is not None and kind.derived
+def is_from_file(spec: ForecasterSpec) -> bool:
+    """True for candidates whose forecasts are read from a file instead of fitted."""
+    kind = BY_KIND.get(spec.kind)
+    return kind is not None and kind.from_file
 
 
 def entry_of(spec: ForecasterSpec) -> str:
@@ -102,7 +129,8 @@ def load_entry(entry: str) -> Any:
         module = importlib.import_module(module_name)
     except Exception as exc:  # any import-time failure of user code is the plugin's problem
         raise PluginError(
-            f"entry {entry}: cannot import module {module_name!r} ({type(exc).__name__}: {exc})"
+            f"entry {entry}: cannot import module {module_name!r} "
+            f"({type(exc).__name__}: {clip(str(exc))})"
         ) from None
     obj: Any = module
     for part in attr.split("."):
@@ -123,7 +151,9 @@ def build(spec: ForecasterSpec) -> Any:
     try:
         return factory(**spec.params)
     except (TypeError, ValueError) as exc:
-        raise PluginError(f"forecaster {spec.name}: bad params {spec.params} ({exc})") from None
+        raise PluginError(
+            f"forecaster {clip(spec.name)}: bad params {brief(spec.params)} ({clip(str(exc))})"
+        ) from None
 
 
 def implementation_version(spec: ForecasterSpec) -> str:

@@ -11,7 +11,7 @@ import json
 from typing import Any
 
 from runner.config import Config, ForecasterSpec
-from runner.errors import ConfigError
+from runner.errors import ConfigError, brief, clip
 from runner.forecasters.registry import BY_KIND, KINDS, PANEL_PLUGIN, PLUGIN, kinds_for
 
 
@@ -74,10 +74,15 @@ def check_specs(cfg: Config, source: str) -> None:
     """Raise :class:`~runner.errors.ConfigError` for unknown kinds, reused names or a reference
     that is not a baseline, naming the config field."""
     baselines = kinds_for("baseline")
+    if cfg.baselines == []:
+        raise ConfigError(
+            f"{source}: baselines: expected at least one baseline (every forecaster is compared "
+            "with a reference baseline); leave the key out to run them all"
+        )
     for i, b in enumerate(cfg.baselines or []):
         if b.kind not in baselines:
             raise ConfigError(
-                f"{source}: baselines[{i}]: unknown baseline {b.kind!r}; expected one of "
+                f"{source}: baselines[{i}]: unknown baseline {brief(b.kind)}; expected one of "
                 f"{', '.join(baselines)}"
             )
     models = [*kinds_for("candidate"), PLUGIN, PANEL_PLUGIN]
@@ -85,17 +90,17 @@ def check_specs(cfg: Config, source: str) -> None:
         if m.kind not in models:
             hint = " (it is a baseline: list it under baselines)" if m.kind in baselines else ""
             raise ConfigError(
-                f"{source}: models[{i}].kind: unknown kind {m.kind!r}; expected one of "
+                f"{source}: models[{i}].kind: unknown kind {brief(m.kind)}; expected one of "
                 f"{', '.join(models)}{hint}"
             )
     specs = forecaster_specs(cfg)
     names = [s.name for s in specs]
     dup = sorted({n for n in names if names.count(n) > 1})
     if dup:
-        raise ConfigError(f"{source}: forecaster name {dup[0]!r} is used twice")
+        raise ConfigError(f"{source}: forecaster name {brief(dup[0])} is used twice")
     baseline_names = [s.name for s in specs if s.role == "baseline"]
     if cfg.reference is not None and cfg.reference not in baseline_names:
         raise ConfigError(
-            f"{source}: reference: {cfg.reference!r} is not one of the baselines "
-            f"({', '.join(baseline_names)})"
+            f"{source}: reference: {brief(cfg.reference)} is not one of the baselines "
+            f"({clip(', '.join(baseline_names))})"
         )

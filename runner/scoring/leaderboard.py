@@ -23,7 +23,6 @@ from runner.scoring.evaluate import DatasetResult, Evaluation, ForecasterResult
 from runner.windows.plan import DatasetPlan
 
 #: Float format of every number written to leaderboard.csv (fixed, so reruns are byte-equal).
-FLOAT_FORMAT = ".6g"
 
 
 def _fold_mean_sd(values: np.ndarray, groups: np.ndarray) -> tuple[float, float]:
@@ -116,6 +115,26 @@ def _origin_spacing(ev: Evaluation, dp: DatasetPlan) -> int:
     return w.step or ev.plan.config.horizon
 
 
+def _summaries(column: str) -> tuple[str, ...]:
+    """The leaderboard columns of a metric: mean and sd over folds, and for a root metric
+    (RMSE, RMSSE) also the pooled figure."""
+    if M.metric_of(column).reduction == "root_mean":
+        return ("mean", "sd", "pooled")
+    return ("mean", "sd")
+
+
+def _pooled_root(per_task: np.ndarray) -> float:
+    """The root of the mean square over every scored (task, step): sqrt(mean(per_task ** 2)).
+
+    Each task's root metric is the root of the mean over its ``horizon`` steps, so the mean of
+    the squared task scores is the mean over all steps, as a cross-validated RMSE is pooled
+    (Hyndman & Athanasopoulos, FPP2 section 3.4). With horizon 1 a task's RMSE is its absolute
+    error, and only this pooled figure is an RMSE of the run.
+    """
+    done = per_task[np.isfinite(per_task)]
+    return float(np.sqrt(np.mean(done**2))) if done.size else float("nan")
+
+
 def build_leaderboard(ev: Evaluation) -> pd.DataFrame:
     """The leaderboard as a DataFrame in its fixed row and column order."""
     cfg = ev.plan.config
@@ -142,6 +161,8 @@ def build_leaderboard(ev: Evaluation) -> pd.DataFrame:
             for col in cols:
                 mean, sd = _fold_mean_sd(r.scores[col].per_task, dp.origin)
                 row[f"{col}_mean"], row[f"{col}_sd"] = mean, sd
+                if M.metric_of(col).reduction == "root_mean":
+                    row[f"{col}_pooled"] = _pooled_root(r.scores[col].per_task)
             block.append(row)
         for row, r in zip(block, dr.results):
             rel = _relative(r, ref, dp.origin, rank_by)
@@ -168,94 +189,7 @@ def build_leaderboard(ev: Evaluation) -> pd.DataFrame:
         rows.extend(sorted(block, key=lambda b: b["rank"]))
     head = ["dataset", "rank", "forecaster", "kind", "role", "series", "folds", "tasks", "failed",
             "complete"]
-    metric_cols = [f"{c}_{s}" for c in cols for s in ("mean", "sd")]
+    metric_cols = [f"{c}_{s}" for c in cols for s in _summaries(c)]
     tail = [f"{rank_by}_rel", "win_share", "dm_better", "dm_worse", "wilcoxon_p",
             "beats_reference"]
     return pd.DataFrame(rows, columns=head + metric_cols + tail)
-
-
-def _fmt(v: object) -> str:
-    if isinstance(v, (bool, np.bool_)):
-        return "true" if v else "false"
-    if isinstance(v, (int, np.integer)):
-        return str(int(v))
-    if isinstance(v, (float, np.floating)):
-        if np.isnan(v):
-            return ""
-        if float(v).is_integer() and abs(v) < 1e15:
-            return str(int(v))
-        return format(float(v), FLOAT_FORMAT)
-    return str(v)
-
-
-def to_csv_text(board: pd.DataFrame) -> str:
-    """The leaderboard as CSV text with fixed formatting (the byte-identical guarantee)."""
-    lines = [",".join(board.columns)]
-    for row in board.itertuples(index=False):
-        cells = []
-        for v in row:
-            s = _fmt(v)
-            if any(ch in s for ch in ',"\n'):
-                s = '"' + s.replace('"', '""') + '"'
-            cells.append(s)
-        lines.append(",".join(cells))
-    return "\n".join(lines) + "\n"
-
-
-def to_markdown(board: pd.DataFrame, rank_by: str, metrics: list[str]) -> str:
-    """The leaderboard as Markdown tables (one per dataset) for reading and review comments."""
-    metric_cols = [c[: -len("_mean")] for c in board.columns if c.endswith("_mean")]
-    out = []
-    for dataset, block in board.groupby("dataset", sort=False):
-        out.append(f"## {dataset}\n")
-        head = ["rank", "forecaster", "role", "series", "folds", "failed", "complete"]
-        marks = {c: (c + " †" if c.split("_")[0] in M.UNRELIABLE else c) for c in metric_cols}
-        header = head + [marks[c] for c in metric_cols] + [f"{rank_by} vs reference",
-                                                             "beats reference"]
-        out.append("| " + " | ".join(header) + " |")
-        out.append("|" + "|".join("---" for _ in header) + "|")
-        for _, r in block.iterrows():
-            cells = [_fmt(r[h]) for h in head]
-            for c in metric_cols:
-                mean, sd = _fmt(r[f"{c}_mean"]), _fmt(r[f"{c}_sd"])
-                cells.append(f"{mean} ± {sd}" if sd else mean)
-            cells.append(_fmt(r[f"{rank_by}_rel"]))
-            cells.append("yes" if r["beats_reference"] else "")
-            out.append("| " + " | ".join(cells) + " |")
-        out.append("")
-    flagged = [m for m in metrics if m in M.UNRELIABLE]
-    notes = ["Scores are the mean ± standard deviation over folds of each fold's mean."]
-    notes += [f"† {m}: unreliable for comparing forecasts ({M.UNRELIABLE[m]})." for m in flagged]
-    failed = board[board["failed"] > 0]
-    if len(failed):
-        notes.append("A forecaster with failed tasks (complete: false) ranks below every "
-                     f"complete one; its {rank_by} vs reference and significance are on the "
-                     "tasks both it and the reference completed.")
-    for _, r in failed.iterrows():
-        notes.append(
-            f"{r['forecaster']} on {r['dataset']}: {r['failed']} failed task(s); scored on "
-            f"the {r['tasks']} that completed (see failures.csv)."
-        )
-    out.extend(notes)
-    return "\n".join(out) + "\n"
-
-
-def to_terminal(board: pd.DataFrame, rank_by: str) -> str:
-    """A compact fixed-width table for the terminal."""
-    lines = []
-    for dataset, block in board.groupby("dataset", sort=False):
-        names = [str(n) for n in block["forecaster"]]
-        width = max(10, *(len(n) for n in names))
-        lines.append(f"{dataset}")
-        lines.append(
-            f"  {'rank':>4}  {'forecaster':<{width}}  {'role':<9}  {rank_by:>10}  "
-            f"{'± sd':>9}  {'vs ref':>7}  {'beats':>5}  {'failed':>6}  {'complete':>8}"
-        )
-        for _, r in block.iterrows():
-            lines.append(
-                f"  {r['rank']:>4}  {r['forecaster']:<{width}}  {r['role']:<9}  "
-                f"{_fmt(r[f'{rank_by}_mean']):>10}  {_fmt(r[f'{rank_by}_sd']):>9}  "
-                f"{_fmt(r[f'{rank_by}_rel']):>7}  {'yes' if r['beats_reference'] else '':>5}  "
-                f"{r['failed']:>6}  {'yes' if r['complete'] else 'NO':>8}"
-            )
-    return "\n".join(lines)

@@ -160,6 +160,21 @@ BY_NAME: dict[str, Metric] = {m.name: m for m in METRICS}
 DEFAULT_METRICS: tuple[str, ...] = tuple(m.name for m in METRICS if m.default)
 #: Metrics the leaderboard flags as unreliable for comparing forecasts, and why.
 UNRELIABLE: dict[str, str] = {m.name: m.unreliable for m in METRICS if m.unreliable}
+#: The mark beside a flagged metric in every table a person reads.
+FLAG = "†"
+
+
+def flag_note(column: str) -> str | None:
+    """The footnote of a metric column flagged in :data:`UNRELIABLE` (None when not flagged).
+
+    >>> flag_note("r2")
+    '† r2: unreliable for comparing forecasts (not a forecast accuracy measure).'
+    >>> flag_note("mae") is None
+    True
+    """
+    base = column.partition("_")[0]
+    why = UNRELIABLE.get(base)
+    return None if why is None else f"{FLAG} {base}: unreliable for comparing forecasts ({why})."
 
 
 @dataclass(frozen=True)
@@ -281,31 +296,68 @@ def score_tasks(
     return out
 
 
-def check_metrics(
-    metrics: list[str] | None, rank_by: str, has_intervals: bool, source: str
-) -> None:
-    """Raise :class:`~runner.errors.ConfigError` when the config's metric choices cannot work.
+#: The rank metric when the config sets none and lists it (or lists no metrics).
+DEFAULT_RANK_BY = "mase"
 
-    Names must be in :data:`METRICS`; ``rank_by`` must be listed and able to order a
-    leaderboard; per-level metrics need ``intervals``.
+
+def check_metrics(
+    metrics: list[str] | None, rank_by: str | None, has_intervals: bool, source: str
+) -> tuple[str, str | None]:
+    """Check the config's metric choices; return the rank metric and a note when a default gave
+    way.
+
+    Names must be in :data:`METRICS`; per-level metrics need ``intervals``. A ``rank_by`` the
+    user wrote must be listed and able to order a leaderboard, else it is an error. Without
+    ``rank_by`` the default yields to the list the user wrote: :data:`DEFAULT_RANK_BY` when it
+    is listed, else the first listed metric that can rank, preferring one not flagged as
+    unreliable (the note says which). Raises
+    :class:`~runner.errors.ConfigError` naming the field.
     """
-    from runner.errors import ConfigError
+    from runner.errors import ConfigError, brief
 
     known = ", ".join(BY_NAME)
     chosen = list(DEFAULT_METRICS) if metrics is None else metrics
     for name in chosen:
         if name not in BY_NAME:
             raise ConfigError(
-                f"{source}: metrics: unknown metric {name!r}; expected some of {known}"
+                f"{source}: metrics: unknown metric {brief(name)}; expected some of {known}"
             )
-    if rank_by not in BY_NAME:
-        raise ConfigError(f"{source}: rank_by: unknown metric {rank_by!r}; expected one of {known}")
-    if rank_by not in chosen:
+    if any(BY_NAME[m].per_level for m in chosen) and not has_intervals:
+        raise ConfigError(f"{source}: metrics: interval metrics need intervals: [levels]")
+    note = None
+    if rank_by is None:
+        # reliable metrics first: a default never picks a flagged metric when another can rank
+        rankable = sorted((m for m in chosen if BY_NAME[m].can_rank),
+                          key=lambda m: m in UNRELIABLE)
+        if DEFAULT_RANK_BY in chosen:
+            rank_by = DEFAULT_RANK_BY
+        elif rankable:
+            rank_by = rankable[0]
+            note = (f"rank_by: {rank_by} (the default {DEFAULT_RANK_BY} is not among metrics; "
+                    "the first listed metric that can rank)")
+        else:
+            raise ConfigError(
+                f"{source}: metrics: none of {brief(chosen)} can order a leaderboard; add a "
+                f"point error metric such as {DEFAULT_RANK_BY}"
+            )
+    elif rank_by not in BY_NAME:
+        raise ConfigError(
+            f"{source}: rank_by: unknown metric {brief(rank_by)}; expected one of {known}"
+        )
+    elif rank_by not in chosen:
         raise ConfigError(f"{source}: rank_by: {rank_by!r} is not among metrics {chosen}")
     if not BY_NAME[rank_by].can_rank:
         raise ConfigError(
             f"{source}: rank_by: {rank_by!r} cannot order a leaderboard; "
             "expected a point error metric such as mase"
         )
-    if any(BY_NAME[m].per_level for m in chosen) and not has_intervals:
-        raise ConfigError(f"{source}: metrics: interval metrics need intervals: [levels]")
+    return rank_by, note
+
+
+def unreliable_rank_warning(rank_by: str) -> str | None:
+    """A warning when the leaderboard is ordered by a metric flagged as unreliable."""
+    why = UNRELIABLE.get(rank_by)
+    if why is None:
+        return None
+    return (f"rank_by: {rank_by} is unreliable for comparing forecasts ({why}); the ranking "
+            f"may mislead, consider {DEFAULT_RANK_BY}")
