@@ -8,6 +8,7 @@
 from __future__ import annotations
 
 from dataclasses import dataclass
+from functools import cached_property
 from pathlib import Path
 from typing import Any
 
@@ -33,6 +34,14 @@ class RunResult:
     def failed_tasks(self) -> int:
         """Number of tasks that failed."""
         return int(self.manifest["tasks"]["failed"])
+
+    @cached_property
+    def segments(self) -> pd.DataFrame:
+        """The leaderboard by segment (leaderboard_segments.csv as a DataFrame; no rows when
+        the config names no ``segments``)."""
+        from runner.scoring.segments import build_segment_leaderboard
+
+        return build_segment_leaderboard(self.evaluation)
 
 
 def output_dir(cfg: Config, override: str | Path | None = None) -> Path:

@@ -49,6 +49,8 @@ def main(args: argparse.Namespace) -> int:
             print(f"  too short: {s}")
         for note in summarise(p.notes):
             print(f"  note: {note}")
+        for line in _segment_sizes(cfg, dp):
+            print(f"  {line}")
         names = [plan.forecasters[i].name for i in dp.forecasters]
         print(f"  forecasters ({len(names)}): {', '.join(names)}; reference {dp.reference}")
         print(f"  tasks: {dp.n_tasks * len(names)}")
@@ -56,6 +58,24 @@ def main(args: argparse.Namespace) -> int:
     cached_txt = "cache off" if cached is None else f"{cached} model tasks already cached"
     print(f"total: {plan.n_tasks} tasks ({cached_txt})")
     return 0
+
+
+def _segment_sizes(cfg, dp) -> list[str]:
+    """``segments: format: bakery 24, cafe 6; volume_tier: A 24, B 8, C 10`` (series per
+    segment value), or nothing when the dataset is not segmented."""
+    import numpy as np
+
+    from runner.scoring.segments import dataset_segments
+
+    segs = dataset_segments(cfg, dp)
+    if not segs.names:
+        return []
+    parts = []
+    for name in segs.names:
+        labels = segs.labels[name][np.unique(dp.series)]
+        sizes = ", ".join(f"{v} {int(np.sum(labels == v))}" for v in segs.values(name))
+        parts.append(f"{name}: {sizes}")
+    return ["segments (series): " + "; ".join(parts)]
 
 
 def _count_cached(plan) -> int | None:

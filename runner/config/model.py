@@ -38,6 +38,9 @@ ENTRY_KINDS = ("plugin", "panel_plugin")
 #: ``windows.origins: from_file``: the origins are those of the recorded candidates' files.
 FROM_FILE = "from_file"
 _SHARE = re.compile(r"^\s*(\d+(?:\.\d+)?)\s*%\s*$")
+#: Segments castgrid derives from each series' values (see :mod:`runner.scoring.classify`);
+#: reserved, so no series attribute may take these names.
+DERIVED_SEGMENTS = ("demand_pattern", "volume_tier")
 _NAME = re.compile(r"^[A-Za-z0-9][A-Za-z0-9._-]*$")
 
 
@@ -68,11 +71,31 @@ class DatasetConfig(_Strict):
     season: int | None = Field(default=None, ge=1)
     covariates: list[str] = Field(default_factory=list)
     missing: Literal["error", "interpolate", "zero"] = "error"
+    #: series attributes (one value per series), read by :mod:`runner.data.attributes`
+    attributes: list[str] = Field(default_factory=list)
+    #: a side file with the series key column(s) and attribute columns
+    attribute_file: str | None = None
 
     @field_validator("name")
     @classmethod
     def _name_is_simple(cls, v: str) -> str:
         return _simple_name(v)
+
+    @field_validator("attributes")
+    @classmethod
+    def _attributes_named_once(cls, v: list[str]) -> list[str]:
+        for name in v:
+            if name in DERIVED_SEGMENTS:
+                raise ValueError(
+                    f"{brief(name)} is the name of a segment castgrid derives itself; rename "
+                    "that column in the file"
+                )
+            if not name.strip():
+                raise ValueError("expected column names, got an empty name")
+        dup = sorted({n for n in v if v.count(n) > 1})
+        if dup:
+            raise ValueError(f"{brief(dup[0])} is listed twice")
+        return v
 
     @field_validator("series")
     @classmethod
@@ -96,6 +119,13 @@ class DatasetConfig(_Strict):
                 )
             if self.covariates:
                 raise ValueError("covariates need layout long")
+            if self.attributes and self.attribute_file is None:
+                raise ValueError(
+                    "layout wide has no column for series attributes; give them in an "
+                    "attribute_file (a column 'series' naming each series, then the attributes)"
+                )
+        if self.attribute_file is not None and not self.attributes:
+            raise ValueError("attribute_file needs attributes: the columns to read from it")
         return self
 
     @property
@@ -327,6 +357,8 @@ class Config(_Strict):
     rank_by: str | None = None
     reference: str | None = None
     intervals: list[float] = Field(default_factory=list)
+    #: series attributes (or derived segments) the results are also given by
+    segments: list[str] = Field(default_factory=list)
     execution: ExecutionConfig = Field(default_factory=ExecutionConfig)
     output: OutputConfig = Field(default_factory=OutputConfig)
 
@@ -408,7 +440,20 @@ class Config(_Strict):
         dup = sorted({n for n in names if names.count(n) > 1})
         if dup:
             raise ValueError(f"datasets: name {brief(dup[0])} is used twice")
+        for i, name in enumerate(self.segments):
+            if name in self.segments[:i]:
+                raise ValueError(f"segments: {brief(name)} is listed twice")
+            if name not in DERIVED_SEGMENTS and not any(name in d.attributes
+                                                        for d in self.datasets):
+                raise ValueError(
+                    f"segments: {brief(name)} is neither a derived segment "
+                    f"({', '.join(DERIVED_SEGMENTS)}) nor in any dataset's attributes"
+                )
         return self
+
+    def dataset_segments(self, dataset: DatasetConfig) -> list[str]:
+        """The ``segments`` that apply to ``dataset``: the derived ones and its attributes."""
+        return [s for s in self.segments if s in DERIVED_SEGMENTS or s in dataset.attributes]
 
     def dataset_season(self, dataset: DatasetConfig) -> int | None:
         """Season length set by the config for ``dataset`` (None: derive from frequency)."""

@@ -103,6 +103,9 @@ class Panel:
     fingerprint: str
     path: str
     notes: list[str] = field(default_factory=list)
+    #: series attributes by name: one text value per series, in key order
+    #: (filled by :func:`runner.data.attributes.attach_attributes`)
+    attributes: dict[str, np.ndarray] = field(default_factory=dict)
 
     @property
     def n_series(self) -> int:

@@ -301,6 +301,9 @@ def write_results(
         (tmp / "manifest.json").write_text(
             json.dumps(man, indent=2, sort_keys=True) + "\n", encoding="utf-8"
         )
+        from runner.output.segments import write_segment_files
+
+        write_segment_files(ev, tmp, board)
         pq.write_table(scores_table(ev, cols), tmp / "scores.parquet")
         pq.write_table(_forecasts_table(ev), tmp / "forecasts.parquet")
         _csv(_horizon_frame(ev, cols), tmp / "horizon.csv")

@@ -26,8 +26,10 @@ from runner.output.reader import (
     ResultsFolder,
     read_leaderboard,
     read_manifest,
+    read_segment_leaderboard,
     read_table,
 )
+from runner.output.segments import SERIES_SEGMENTS
 
 if TYPE_CHECKING:  # the command line imports this module at start; pandas loads when used
     import pandas as pd
@@ -47,6 +49,9 @@ class Results:
     forecasts: pd.DataFrame | None
     failures: pd.DataFrame | None
     history: list[dict[str, Any]] | None
+    #: leaderboard_segments.csv and series_segments.csv (None: a run without ``segments:``)
+    segments: pd.DataFrame | None = None
+    series_segments: pd.DataFrame | None = None
 
 
 def _optional(folder: ResultsFolder, name: str, required: tuple[str, ...]) -> pd.DataFrame | None:
@@ -85,6 +90,8 @@ def read_results(out_dir: Path) -> Results:
         forecasts=forecasts,
         failures=_optional(folder, FAILURES, base + ("reason",)),
         history=_history(folder),
+        segments=read_segment_leaderboard(folder, rank_by),
+        series_segments=_optional(folder, SERIES_SEGMENTS, ("dataset", "series")),
     )
 
 

@@ -11,7 +11,7 @@ import numpy as np
 
 from runner.config import Config, ForecasterSpec, load_config
 from runner.config.model import FROM_FILE
-from runner.data import Panel, load_panel, season_for_frequency
+from runner.data import Panel, attach_attributes, load_panel, season_for_frequency
 from runner.errors import ConfigError, DataError
 from runner.windows.axis import TimeAxis, time_axis
 from runner.windows.folds import (
@@ -345,8 +345,13 @@ def build_plan(
     plans = []
     for i, ds in enumerate(cfg.datasets):
         panel = load_panel(ds, base, cfg.season, entry=f"{config_path}: datasets[{i}]")
+        attach_attributes(panel, ds, base)
         _check_season(cfg, i, panel, str(config_path))
         plans.append(plan_dataset(cfg, panel, specs, str(config_path), file_origins))
+        unsegmented = [s for s in cfg.segments if s not in cfg.dataset_segments(ds)]
+        if unsegmented:
+            plans[-1].notes.append(f"not segmented by {', '.join(unsegmented)} (not among "
+                                   "its attributes)")
     return Plan(cfg, config_path, specs, plans)
 
 
