@@ -56,6 +56,7 @@ class Spy(LastValues):
             "covariates": None if history.covariates is None else history.covariates.tolist(),
             "covariate_names": list(history.covariate_names),
             "static": {k: v.tolist() for k, v in history.static.items()},
+            "attributes": {k: v.tolist() for k, v in history.attributes.items()},
             "origin": int(history.origin),
             "origin_time": _times_text(np.asarray([history.origin_time]))[0],
             "season": int(history.season),

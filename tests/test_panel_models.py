@@ -40,6 +40,9 @@ EXAMPLES = Path(__file__).resolve().parent.parent / "examples" / "plugins"
 sys.path.insert(0, str(EXAMPLES))
 from lag_boosting import LagBoosting  # noqa: E402
 
+#: A series attribute (one text per series), declared as ``attributes: [seat]``.
+SEAT = {"DriversKilled": "driver", "front": "front passenger", "rear": "rear passenger",
+        "VanKilled": "van driver"}
 SPANS = {
     "DriversKilled": ("1969-01-01", "1984-12-01"),
     "front": ("1970-01-01", "1984-12-01"),
@@ -72,7 +75,7 @@ def seatbelts() -> pd.DataFrame:
         keep = (months >= first) & (months <= last)
         parts.append(pd.DataFrame({
             "road": road, "month": months[keep], "deaths": d[road].to_numpy(float)[keep],
-            "law": d["law"].to_numpy(float)[keep],
+            "law": d["law"].to_numpy(float)[keep], "seat": SEAT[road],
         }))
     return pd.concat(parts, ignore_index=True)
 
@@ -92,7 +95,8 @@ def write_config(tmp: Path, models: list[dict], *, frame: pd.DataFrame | None = 
         "horizon": 6,
         "season": 12,
         "datasets": [{"name": "roads", "path": f"{name}.csv", "series": "road", "time": "month",
-                      "target": "deaths", "frequency": "MS", "covariates": ["law"]}],
+                      "target": "deaths", "frequency": "MS", "covariates": ["law"],
+                      "attributes": ["seat"]}],
         "windows": windows or {"scheme": "expanding", "train": 48, "step": 12, "folds": 6},
         "baselines": ["seasonal_naive"],
         "models": models,
@@ -147,7 +151,8 @@ def test_spy_is_given_every_series_up_to_the_origin_and_nothing_after(tmp_path, 
         })
         # exactly the panel's rows up to the origin, every series, nothing after it
         assert got["month"].max() == origin and seen["origin_time"] == label
-        pd.testing.assert_frame_equal(got.reset_index(drop=True), want.reset_index(drop=True),
+        pd.testing.assert_frame_equal(got.reset_index(drop=True),
+                                      want.drop(columns="seat").reset_index(drop=True),
                                       check_dtype=False)
         assert seen["keys"] == sorted(want["road"].unique())  # a later series is not named
         months_since_1969 = (got["month"].dt.year - 1969) * 12 + got["month"].dt.month - 1
@@ -156,6 +161,7 @@ def test_spy_is_given_every_series_up_to_the_origin_and_nothing_after(tmp_path, 
         assert (seen["season"], seen["frequency"], seen["covariate_names"]) == (12, "MS", ["law"])
         constant = want.groupby("road")["law"].nunique().eq(1).all()
         assert seen["static"] == ({"law": [0.0] * len(seen["keys"])} if constant else {})
+        assert seen["attributes"] == {"seat": [SEAT[k] for k in seen["keys"]]}
         # predict: the series that have this origin, and their covariates of the 6 months after
         requested = [seen["keys"][i] for i in seen["series"]]
         assert requested == sorted(plan.panel.keys[i] for i in plan.series[plan.fold == k])
@@ -398,7 +404,7 @@ def test_example_forecasts_equal_a_direct_scikit_learn_computation(tmp_path):
     xs, ys, scales, tails = [], [], {}, {}
     for road, g in sorted(history.groupby("road"), key=lambda kv: str(kv[0])):
         g = g.sort_values("month")
-        scales[road] = g["deaths"].abs().mean()
+        scales[road] = g["deaths"].abs().iloc[-12:].mean()  # the last season's level
         z = g["deaths"] / scales[road]
         tails[road] = z.to_numpy()[-24:]
         feats = pd.DataFrame({f"lag{lag}": z.shift(lag) for lag in lags})

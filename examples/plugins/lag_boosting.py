@@ -14,9 +14,11 @@ Features of the value at position ``t`` of a series (in this column order):
 3. ``phase``: ``t mod m``, the point of the season (left out when ``m`` is 1);
 4. the dataset's known-in-advance covariates at ``t`` (e.g. a promotion flag), when given.
 
-Values (the target and its lags) are divided by the series' scale, the mean absolute value of
-its history up to the origin (1 when that is 0), so series of different sizes share one model;
-forecasts are multiplied back.
+Values (the target and its lags) are divided by the series' recent level, the mean absolute
+value of its last ``max(m, lags)`` values up to the origin (1 when that is 0), so series of
+different sizes share one model; forecasts are multiplied back. The recent level rather than the
+whole history's: trees cannot extrapolate, and a growing series divided by its long-run mean
+would end its history above every value the trees were fit on.
 
 Multi-step forecasts are **recursive**: the model forecasts one step ahead, and step ``k + 1``
 uses the forecasts of steps ``1 ... k`` in place of the lags not yet observed. One model per
@@ -131,7 +133,7 @@ class LagBoosting:
         x_parts, y_parts = [], []
         for i in range(n):
             y = history.series_values(i)
-            scale = float(np.mean(np.abs(y)))
+            scale = float(np.mean(np.abs(y[-max(self.season_, self.lags) :])))
             self.scale_[i] = scale if scale > 0 else 1.0
             z = y / self.scale_[i]
             keep = min(depth, len(z))

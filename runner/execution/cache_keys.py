@@ -9,10 +9,10 @@ folds unchanged and a revised value changes exactly the keys of the folds that s
 
 The key of a panel task (one fit per dataset and origin, :mod:`runner.execution.panel_tasks`)
 covers everything its forecaster is given, built by the same function that builds its input:
-every field of the history record (every series' values, positions, times, covariates and
-static attributes up to the origin, the keys, the origin, season and frequency), the series it
-forecasts and their forecast-period covariates, plus its identity, the horizon, the steps
-forecast (gap included) and the interval levels.
+every field of the history record (every series' values, positions, times, covariates, static
+covariates and attributes up to the origin, the keys, the origin, season and frequency), the
+series it forecasts and their forecast-period covariates, plus its identity, the horizon, the
+steps forecast (gap included) and the interval levels.
 """
 
 from __future__ import annotations

@@ -68,6 +68,7 @@ class PanelLayout:
     positions: np.ndarray
     times: np.ndarray
     covariate_names: tuple[str, ...]
+    attributes: dict[str, np.ndarray]
     season: int
     frequency: str | None
     window: int | None
@@ -109,6 +110,8 @@ def panel_layouts(plan: Plan) -> list[PanelLayout | None]:
             positions=np.asarray(positions, dtype=np.int64),
             times=panel.times,
             covariate_names=tuple(panel.covariate_names),
+            # numpy text (not object) arrays: their bytes, hashed into cache keys, are the texts
+            attributes={k: np.asarray(v, dtype=str) for k, v in panel.attributes.items()},
             season=int(panel.season),
             frequency=panel.frequency,
             window=int(dp.ends[0] - dp.starts[0]) if sliding else None,
@@ -180,6 +183,7 @@ def panel_inputs(
         covariates=cov,
         covariate_names=names,
         static=_static(cov, offsets, names),
+        attributes={k: v[present].copy() for k, v in layout.attributes.items()},
         origin=o,
         origin_time=layout.times[at_origin[0]] if len(targets) else None,
         season=layout.season,

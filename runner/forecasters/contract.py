@@ -185,8 +185,9 @@ class PanelHistory:
       (the dataset's known-in-advance columns); None when the dataset has none or the
       forecaster's class says ``uses_covariates = False``.
     * ``static``: the covariate columns that are constant within every series of this record,
-      as one value per series (``static[name][i]``): attributes of a series, such as a size
-      class, read from the rows given here only.
+      as one value per series (``static[name][i]``), read from the rows given here only.
+    * ``attributes``: the dataset's series attributes (``attributes:`` of the dataset: a
+      format, a region), one text per series (``attributes[name][i]``, a numpy string array).
     * ``origin``: the origin's position on the time axis: the position of the last training
       observation. Every value here is at or before it.
     * ``origin_time``: the time at ``origin`` (same type as ``times``).
@@ -207,6 +208,7 @@ class PanelHistory:
     covariates: np.ndarray | None
     covariate_names: tuple[str, ...]
     static: Mapping[str, np.ndarray]
+    attributes: Mapping[str, np.ndarray]
     origin: int
     origin_time: Any
     season: int
@@ -299,8 +301,9 @@ class PanelForecaster(Protocol):
     ``fit(history)`` once. ``history`` is a :class:`PanelHistory`: the values of every series
     of the dataset up to the origin (the origin is the last training observation), their
     positions and times, the known-in-advance covariates of those rows, the series keys, the
-    static attributes, the origin, the season length and the frequency. Nothing dated after the
-    origin is in it, for any series. ``fit`` returns the forecaster itself.
+    static covariates and series attributes, the origin, the season length and the frequency.
+    Nothing dated after the origin is in it, for any series. ``fit`` returns the forecaster
+    itself.
 
     ``predict(horizon, *, series, covariates=None, levels=())`` once. ``series`` is an int64
     array of indices into ``history.keys``: the series to forecast, those that have this origin

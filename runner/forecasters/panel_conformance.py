@@ -12,7 +12,7 @@ The twin of :mod:`runner.forecasters.conformance` for the
 The checks (``PANEL_CHECKS``, in this order; each is a module-level ``check_<name>(subject)``
 function, and ``only=(name,)`` runs one by itself). They fit on :func:`example_panel`: invented
 seeded series of different lengths and scales, one ending before the origin, with a 0/1
-covariate and a covariate constant within each series.
+covariate, a covariate constant within each series and a series attribute.
 
 ``protocol``                  fit and predict exist and take the panel protocol's keywords
 ``init_stores_params``        ``__init__`` declares each parameter by name and only stores it
@@ -82,7 +82,8 @@ def example_panel(
     ``series``. Values are positive: a level that differs by series (tens to hundreds), a trend,
     a season of ``season`` positions and seeded noise, plus 5 in positions where the 0/1
     covariate ``promo`` is 1. The covariate ``size`` is constant within each series (a static
-    attribute). ``future`` holds ``horizon`` steps of both covariates for each of ``series``.
+    covariate); the attribute ``group`` names a region per series. ``future`` holds ``horizon``
+    steps of both covariates for each of ``series``.
     """
     rng = np.random.default_rng(seed)
     origin = length - 1
@@ -117,6 +118,8 @@ def example_panel(
         covariates=cov_a,
         covariate_names=names,
         static={"size": size.copy()} if covariates else {},
+        attributes={"group": np.array(["north", "south", "north", "east", "south", "east"]
+                                      * (n_series // 6 + 1))[:n_series]},
         origin=origin,
         origin_time=np.int64(origin),
         season=season,
