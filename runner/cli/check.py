@@ -81,9 +81,11 @@ def _segment_sizes(cfg, dp) -> list[str]:
 def _count_cached(plan) -> int | None:
     from runner.execution.cache import count_cached
     from runner.execution.model_tasks import build_model_tasks
+    from runner.execution.panel_tasks import build_panel_tasks
 
     path = plan.config.execution.cache_folder()
     if path is None:
         return None
     tasks, shared = build_model_tasks(plan)
-    return count_cached(tasks, shared, path) if tasks else 0
+    every = [*tasks, *build_panel_tasks(plan, len(tasks))]
+    return count_cached(every, shared, path) if every else 0

@@ -32,6 +32,9 @@ RENAMED_PARAMS = {
         "max_models": "fits_up_to",
     },
 }
+#: Kinds whose forecaster is the user's own class, named by ``entry: module:attribute``:
+#: ``plugin`` (one series per fit) and ``panel_plugin`` (every series of a dataset per fit).
+ENTRY_KINDS = ("plugin", "panel_plugin")
 #: ``windows.origins: from_file``: the origins are those of the recorded candidates' files.
 FROM_FILE = "from_file"
 _SHARE = re.compile(r"^\s*(\d+(?:\.\d+)?)\s*%\s*$")
@@ -284,7 +287,7 @@ class ModelConfig(_Strict):
     """A candidate forecaster; ``grid`` expands it into one candidate per combination."""
 
     name: str
-    #: a kind of :data:`runner.forecasters.registry.KINDS`, or ``plugin``
+    #: a kind of :data:`runner.forecasters.registry.KINDS`, or ``plugin`` / ``panel_plugin``
     kind: str
     params: dict[str, Any] = Field(default_factory=dict)
     grid: dict[str, list[Any]] = Field(default_factory=dict)
@@ -312,10 +315,10 @@ class ModelConfig(_Strict):
 
     @model_validator(mode="after")
     def _entry_for_plugins(self) -> ModelConfig:
-        if self.kind == "plugin" and not self.entry:
-            raise ValueError('kind plugin needs entry: "module:attribute"')
-        if self.kind != "plugin" and self.entry:
-            raise ValueError(f"entry is only for kind plugin, not {self.kind}")
+        if self.kind in ENTRY_KINDS and not self.entry:
+            raise ValueError(f'kind {self.kind} needs entry: "module:attribute"')
+        if self.kind not in ENTRY_KINDS and self.entry:
+            raise ValueError(f"entry is only for kind plugin or panel_plugin, not {self.kind}")
         if self.entry and not re.match(r"^[\w.]+:[\w.]+$", self.entry):
             raise ValueError(f'entry: expected "module:attribute", got {brief(self.entry)}')
         for key in list(self.params) + list(self.grid):

@@ -40,7 +40,7 @@ from typing import TYPE_CHECKING, Any
 from runner.execution.cache_keys import task_keys
 
 if TYPE_CHECKING:  # the command line imports this module at start: keep it light
-    from runner.execution.tasks import ModelTask, SharedData, TaskOutcome
+    from runner.execution.tasks import SharedData, Task, TaskOutcome
 
 CACHE_FILE = "forecasts.sqlite"
 #: Bump when the key or the row layout changes; an older file is then set aside and rebuilt.
@@ -383,9 +383,13 @@ def info_json(info: dict[str, Any]) -> str:
     return json.dumps(info, sort_keys=True, default=plain, allow_nan=True)
 
 
-def outcome_from_row(index: int, row: tuple[Any, ...], horizon: int, n_levels: int
-                     ) -> TaskOutcome | None:
-    """A cached outcome (``cached=True``), or None when the row does not fit this run."""
+def outcome_from_row(index: int, row: tuple[Any, ...], horizon: int, n_levels: int,
+                     rows: int | None = None) -> TaskOutcome | None:
+    """A cached outcome (``cached=True``), or None when the row does not fit this run.
+
+    ``rows`` is the number of series of a panel task's outcome (its arrays are then
+    ``(rows, horizon)`` and ``(levels, rows, horizon)``); None for a per-series task.
+    """
     import numpy as np
 
     from runner.execution.tasks import TaskOutcome
@@ -396,15 +400,17 @@ def outcome_from_row(index: int, row: tuple[Any, ...], horizon: int, n_levels: i
     if reason is not None:
         return TaskOutcome(index, None, None, None, reason=reason, message=message,
                            info=json.loads(info), seconds=float(seconds), cached=True)
-    if len(point) != 8 * horizon:
+    shape = (horizon,) if rows is None else (rows, horizon)
+    size = 8 * int(np.prod(shape))
+    if len(point) != size:
         return None
-    if len(lower) != 8 * horizon * n_levels or len(upper) != len(lower):
+    if len(lower) != size * n_levels or len(upper) != len(lower):
         return None
     return TaskOutcome(
         index,
-        np.frombuffer(point, dtype=np.float64).copy(),
-        np.frombuffer(lower, dtype=np.float64).reshape(n_levels, horizon).copy(),
-        np.frombuffer(upper, dtype=np.float64).reshape(n_levels, horizon).copy(),
+        np.frombuffer(point, dtype=np.float64).reshape(shape).copy(),
+        np.frombuffer(lower, dtype=np.float64).reshape(n_levels, *shape).copy(),
+        np.frombuffer(upper, dtype=np.float64).reshape(n_levels, *shape).copy(),
         info=json.loads(info),
         seconds=float(seconds),
         cached=True,
@@ -412,9 +418,12 @@ def outcome_from_row(index: int, row: tuple[Any, ...], horizon: int, n_levels: i
 
 
 def count_cached(
-    tasks: Sequence[ModelTask], shared: SharedData, cache_path: str | Path | None
+    tasks: Sequence[Task], shared: SharedData, cache_path: str | Path | None
 ) -> int:
-    """How many of ``tasks`` the cache in folder ``cache_path`` can serve (never changes it)."""
+    """How many of ``tasks`` the cache in folder ``cache_path`` can serve (never changes it).
+
+    Counted in (series, fold) tasks: a panel task counts once per series it forecasts.
+    """
     if cache_path is None or not tasks:
         return 0
     try:
@@ -426,9 +435,12 @@ def count_cached(
     if cache is None:
         return 0
     with cache:
+        from runner.execution.panel_tasks import PanelTask, panel_rows
+
         keys = task_keys(tasks, shared)
         found = cache.lookup(keys)
-        return sum(1 for k in keys if k in found)
+        return sum(panel_rows(t, shared) if isinstance(t, PanelTask) else 1
+                   for t, k in zip(tasks, keys) if k in found)
 
 
 # ----------------------------------------------------------------------------- command line

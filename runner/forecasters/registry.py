@@ -2,7 +2,9 @@
 
 Built-in baselines and models are registered here under their ``kind`` and load through the
 same path as a user's plugin (``kind: plugin`` with ``entry: mypackage.mod:Class``), so the
-protocol the plugins must honour is the one the built-ins are held to.
+protocol the plugins must honour is the one the built-ins are held to. A user's model trained
+across series (``kind: panel_plugin``, the protocol
+:class:`~runner.forecasters.contract.PanelForecaster`) loads the same way.
 """
 
 from __future__ import annotations
@@ -87,6 +89,8 @@ BY_KIND: dict[str, Kind] = {k.name: k for k in KINDS}
 BUILTIN: dict[str, str] = {k.name: k.entry for k in KINDS}
 #: The kind of a user's own forecaster, named by ``entry: module:attribute``.
 PLUGIN = "plugin"
+#: The kind of a user's own model trained across the series of a dataset (one fit per origin).
+PANEL_PLUGIN = "panel_plugin"
 
 
 def kinds_for(role: str) -> list[str]:
@@ -106,10 +110,15 @@ def is_from_file(spec: ForecasterSpec) -> bool:
 
 def entry_of(spec: ForecasterSpec) -> str:
     """The ``module:attribute`` that builds ``spec``."""
-    if spec.kind == PLUGIN:
+    if spec.kind in (PLUGIN, PANEL_PLUGIN):
         assert spec.entry is not None
         return spec.entry
     return BUILTIN[spec.kind]
+
+
+def is_panel(spec: ForecasterSpec) -> bool:
+    """True for forecasters fit once per origin on every series of a dataset."""
+    return spec.kind == PANEL_PLUGIN
 
 
 @cache
@@ -167,7 +176,7 @@ def identity(spec: ForecasterSpec) -> str:
         "params": spec.params,
         "version": implementation_version(spec),
     }
-    if spec.kind == "plugin":
+    if spec.kind in (PLUGIN, PANEL_PLUGIN):
         fields["entry"] = entry_of(spec)
     return json.dumps(
         fields,
@@ -185,8 +194,9 @@ def is_vectorised(spec: ForecasterSpec) -> bool:
 def accepts_covariates(spec: ForecasterSpec) -> bool:
     """True for forecasters that are given the datasets' covariates.
 
-    Built-ins say so with a ``uses_covariates`` class attribute; plugins always receive them,
-    since the plugin protocol takes ``covariates`` in both ``fit`` and ``predict``.
+    Built-ins say so with a ``uses_covariates`` class attribute; plugins (per-series and
+    panel) receive them unless their class says ``uses_covariates = False``, since both plugin
+    protocols take covariates.
     """
     factory = load_entry(entry_of(spec))
-    return bool(getattr(factory, "uses_covariates", spec.kind == "plugin"))
+    return bool(getattr(factory, "uses_covariates", spec.kind in (PLUGIN, PANEL_PLUGIN)))

@@ -16,7 +16,8 @@ import numpy as np
 from runner.config import ForecasterSpec
 from runner.execution.dispatch import EngineCounts, forecast_models
 from runner.execution.model_tasks import build_model_tasks
-from runner.execution.tasks import ModelTask
+from runner.execution.panel_tasks import build_panel_tasks, panel_results, panel_rows
+from runner.execution.tasks import ModelTask, TaskOutcome
 from runner.forecasters.recorded import recorded_forecasts
 from runner.forecasters.registry import build, is_vectorised
 from runner.forecasters.slices import SliceSummary, summarise
@@ -192,6 +193,25 @@ def evaluate(
                         upper[:, t] = o.upper
             per_dataset[d][f] = ForecasterResult(
                 plan.forecasters[f], point, lower, upper, reason, message, info=info
+            )
+
+    # Models trained across series: one task per (dataset, forecaster, origin), same engine.
+    panel_tasks = build_panel_tasks(plan, first_index=len(model_tasks))
+    if panel_tasks:
+        panel_out: list[TaskOutcome] = []
+        if stopped:  # on_error: stop, and a per-series task failed: no panel task runs
+            counts.not_run += sum(panel_rows(t, shared) for t in panel_tasks)
+        else:
+            panel_out, panel_counts = forecast_models(
+                panel_tasks, shared, cfg.execution, use_cache=use_cache, jobs=jobs,
+                quiet=quiet, cache_path=cfg.execution.cache_folder(), label="panel fits",
+            )
+            counts = counts + panel_counts
+            stopped = any(o.reason == "not-run" for o in panel_out)
+        for (d, f), pr in panel_results(plan, panel_tasks, panel_out, shared).items():
+            per_dataset[d][f] = ForecasterResult(
+                plan.forecasters[f], pr.point, pr.lower, pr.upper, pr.reason, pr.message,
+                info=pr.info,
             )
 
     add_derived(plan, summaries, per_dataset)  # combinations, selections: from the forecasts
