@@ -40,6 +40,14 @@ class RunResult:
         """Number of tasks that failed."""
         return int(self.manifest["tasks"]["failed"])
 
+    @cached_property
+    def segments(self) -> pd.DataFrame:
+        """The leaderboard by segment (leaderboard_segments.csv as a DataFrame; no rows when
+        the config names no ``segments``)."""
+        from runner.scoring.segments import build_segment_leaderboard
+
+        return build_segment_leaderboard(self.evaluation)
+
 
 def output_dir(cfg: Config, override: str | Path | None = None) -> Path:
     """results/<experiment>, or output.dir, or the ``--out`` override."""
@@ -74,6 +82,7 @@ def prepare(config: str | Path | Config, config_path: Path | None = None) -> Pla
     one line naming the config field, not a failed task per series.
     """
     from runner.config import load_config
+    from runner.forecasters.recorded import RecordedSources
     from runner.forecasters.specs import forecaster_specs
     from runner.forecasters.validation import validate_forecasters
     from runner.scoring.metrics import DEFAULT_METRICS, check_metrics, unreliable_rank_warning
@@ -95,7 +104,10 @@ def prepare(config: str | Path | Config, config_path: Path | None = None) -> Pla
     dropped = validate_forecasters(config, config_path)
     notes.extend(dropped.values())
     specs = [s for s in forecaster_specs(config) if s.name not in dropped]
-    plan = build_plan(config, specs, config_path)
+    # forecasts made elsewhere: read and checked here, before any work, like the datasets
+    recorded = RecordedSources(config, specs, config_path)
+    plan = build_plan(config, specs, config_path, file_origins=recorded.origins)
+    recorded.attach(plan)
     plan.notes.extend(notes)
     warning = unreliable_rank_warning(rank_by)
     if warning is not None:

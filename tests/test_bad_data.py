@@ -315,7 +315,7 @@ BATTERY = [
     # --- too short for the windows
     case("series-too-short", {"d.csv": "id,t,y\n" + "".join(f"a,{t},1\n" for t in range(1, 9))},
          None, ("d.csv", "series 'a' has 8 observations")),
-    case("series-horizon-beyond-data", {"d.csv": CSV}, None, ("d.csv", "no series is long enough"),
+    case("series-horizon-beyond-data", {"d.csv": CSV}, None, ("d.csv", "needs at least 40"),
          horizon=30),
     # --- wide layout
     case("wide-text-in-series", {"d.csv": WIDE.replace("\n3,", "\n3,x")},
@@ -555,7 +555,7 @@ def test_closed_stdout_ends_quietly_for_every_command(tmp_path):
 
 def _exits_config(tmp_path: Path, jobs: int) -> Path:
     exits = {"name": "exits", "kind": "plugin", "entry": "fault_plugins:Exits",
-             "params": {"when_length": 14, "code": 0}}  # fmt: skip
+             "params": {"when_length": 13, "code": 0}}  # fmt: skip
     return _setup(tmp_path, {"d.csv": CSV},
                   _config(models=[exits], execution={"jobs": jobs, "cache": False}))
 
@@ -569,7 +569,8 @@ def test_plugin_ending_its_process_with_code_0_never_passes_for_a_run(tmp_path):
                          capture_output=True, text=True, env=env, timeout=300)  # fmt: skip
     assert res.returncode == 3, (res.returncode, res.stderr)
     failures = pd.read_csv(out / "failures.csv")
-    # folds train on 11, 14 and 17 values; the plugin exits on 14, once per series
+    # origins (shared, from the first time) train on 10, 13 and 16 values; the plugin exits on
+    # 13, once per series
     assert sorted(failures["series"]) == ["a", "b"]
     assert set(failures["reason"]) == {"crash"}
     assert failures["message"].str.contains("exit code 0").all()

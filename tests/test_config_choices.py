@@ -323,7 +323,7 @@ def test_the_schema_lists_the_names_a_run_accepts():
     baseline_enum = props["baselines"]["anyOf"][0]["items"]["anyOf"][0]["enum"]
     assert baseline_enum == [k.name for k in KINDS if k.role == "baseline"]
     assert defs["ModelConfig"]["properties"]["kind"]["enum"] == [
-        *(k.name for k in KINDS if k.role == "candidate"), "plugin"]
+        *(k.name for k in KINDS if k.role == "candidate"), "plugin", "panel_plugin"]
     assert props["metrics"]["anyOf"][0]["items"]["enum"] == [m.name for m in METRICS]
     assert props["rank_by"]["anyOf"][0]["enum"] == [m.name for m in METRICS if m.can_rank]
     assert defs["WindowsConfig"]["properties"]["scheme"]["enum"] == ["expanding", "sliding"]

@@ -22,9 +22,10 @@ from runner.testing import (
 FAST_PARAMS = {"arima_search": {"p_up_to": 1, "q_up_to": 1, "fits_up_to": 6, "seasonal": False}}
 
 
-# Derived kinds (combinations, selections) have no fit / predict: their forecasts are computed
-# from other forecasters' (tests/test_derived.py).
-FORECASTING_KINDS = sorted(k.name for k in KINDS if not k.derived)
+# Derived kinds (combinations, selections) and recorded ones have no fit / predict: their
+# forecasts are computed from other forecasters' (tests/test_derived.py) or read from a file
+# (tests/test_recorded.py).
+FORECASTING_KINDS = sorted(k.name for k in KINDS if not (k.derived or k.from_file))
 
 
 @pytest.mark.parametrize("kind", FORECASTING_KINDS)

@@ -484,7 +484,7 @@ def test_the_readme_configs_are_valid(tmp_path):
     repo = Path(__file__).resolve().parents[1]
     text = (repo / "README.md").read_text()
     section = text[text.index("### Candidates made from other forecasts"):
-                   text.index("## Plugins\n")]
+                   text.index("## Forecasts made elsewhere")]
     blocks = [b for b in re.findall(r"```yaml\n(.*?)```", section, re.S)
               if b.startswith("experiment:")]
     assert len(blocks) == 2

@@ -309,5 +309,5 @@ def test_metrics_table_flags_unreliable_metrics(tmp_path: Path) -> None:
                                     view.looks))
     head = [c[2] for c in _parse(text).rows[0]]
     assert head == ["forecaster", "mae", "mase", "mape \u2020"]
-    assert "unreliable for comparing forecasts (mape:" in text
+    assert "† mape: unreliable for comparing forecasts (undefined" in text
     assert "12.50 \u00b1 1.25" in text

@@ -49,6 +49,8 @@ def main(args: argparse.Namespace) -> int:
             print(f"  too short: {s}")
         for note in summarise(p.notes):
             print(f"  note: {note}")
+        for line in _segment_sizes(cfg, dp):
+            print(f"  {line}")
         names = [plan.forecasters[i].name for i in dp.forecasters]
         print(f"  forecasters ({len(names)}): {', '.join(names)}; reference {dp.reference}")
         print(f"  tasks: {dp.n_tasks * len(names)}")
@@ -58,12 +60,32 @@ def main(args: argparse.Namespace) -> int:
     return 0
 
 
+def _segment_sizes(cfg, dp) -> list[str]:
+    """``segments: format: bakery 24, cafe 6; volume_tier: A 24, B 8, C 10`` (series per
+    segment value), or nothing when the dataset is not segmented."""
+    import numpy as np
+
+    from runner.scoring.segments import dataset_segments
+
+    segs = dataset_segments(cfg, dp)
+    if not segs.names:
+        return []
+    parts = []
+    for name in segs.names:
+        labels = segs.labels[name][np.unique(dp.series)]
+        sizes = ", ".join(f"{v} {int(np.sum(labels == v))}" for v in segs.values(name))
+        parts.append(f"{name}: {sizes}")
+    return ["segments (series): " + "; ".join(parts)]
+
+
 def _count_cached(plan) -> int | None:
     from runner.execution.cache import count_cached
     from runner.execution.model_tasks import build_model_tasks
+    from runner.execution.panel_tasks import build_panel_tasks
 
     path = plan.config.execution.cache_folder()
     if path is None:
         return None
     tasks, shared = build_model_tasks(plan)
-    return count_cached(tasks, shared, path) if tasks else 0
+    every = [*tasks, *build_panel_tasks(plan, len(tasks))]
+    return count_cached(every, shared, path) if every else 0

@@ -15,7 +15,7 @@ from typing import Any
 def config_schema() -> dict[str, Any]:
     """The JSON Schema of a castgrid config, with every enumeration filled in."""
     from runner.config import Config
-    from runner.forecasters.registry import PLUGIN, kinds_for
+    from runner.forecasters.registry import PANEL_PLUGIN, PLUGIN, kinds_for
     from runner.scoring.metrics import METRICS
 
     schema = Config.model_json_schema()
@@ -49,7 +49,7 @@ def config_schema() -> dict[str, Any]:
     }
     defs.pop("BaselineSpec", None)
     defs["ModelConfig"]["properties"]["kind"] = {
-        "title": "Kind", "type": "string", "enum": [*kinds_for("candidate"), PLUGIN],
+        "title": "Kind", "type": "string", "enum": [*kinds_for("candidate"), PLUGIN, PANEL_PLUGIN],
     }
     names = [m.name for m in METRICS]
     props["metrics"]["anyOf"][0]["items"] = {"type": "string", "enum": names}

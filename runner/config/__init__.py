@@ -9,6 +9,7 @@ that layer, before any data is read (:func:`runner.pipeline.prepare`).
 
 from runner.config.loading import format_validation_error, load_config, parse_config
 from runner.config.model import (
+    DERIVED_SEGMENTS,
     RENAMED_KINDS,
     RENAMED_PARAMS,
     BaselineSpec,
@@ -24,7 +25,8 @@ from runner.config.model import (
 )
 
 __all__ = [
-    "RENAMED_KINDS", "RENAMED_PARAMS", "BaselineSpec", "Config", "DatasetConfig",
-    "ExecutionConfig", "ForecasterSpec", "ModelConfig", "OutputConfig", "WindowsConfig",
+    "DERIVED_SEGMENTS", "RENAMED_KINDS", "RENAMED_PARAMS", "BaselineSpec", "Config",
+    "DatasetConfig", "ExecutionConfig", "ForecasterSpec", "ModelConfig", "OutputConfig",
+    "WindowsConfig",
     "canonical_json", "config_hash", "format_validation_error", "load_config", "parse_config",
 ]

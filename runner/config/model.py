@@ -32,7 +32,15 @@ RENAMED_PARAMS = {
         "max_models": "fits_up_to",
     },
 }
+#: Kinds whose forecaster is the user's own class, named by ``entry: module:attribute``:
+#: ``plugin`` (one series per fit) and ``panel_plugin`` (every series of a dataset per fit).
+ENTRY_KINDS = ("plugin", "panel_plugin")
+#: ``windows.origins: from_file``: the origins are those of the recorded candidates' files.
+FROM_FILE = "from_file"
 _SHARE = re.compile(r"^\s*(\d+(?:\.\d+)?)\s*%\s*$")
+#: Segments castgrid derives from each series' values (see :mod:`runner.scoring.classify`);
+#: reserved, so no series attribute may take these names.
+DERIVED_SEGMENTS = ("demand_pattern", "volume_tier")
 _NAME = re.compile(r"^[A-Za-z0-9][A-Za-z0-9._-]*$")
 
 
@@ -63,11 +71,31 @@ class DatasetConfig(_Strict):
     season: int | None = Field(default=None, ge=1)
     covariates: list[str] = Field(default_factory=list)
     missing: Literal["error", "interpolate", "zero"] = "error"
+    #: series attributes (one value per series), read by :mod:`runner.data.attributes`
+    attributes: list[str] = Field(default_factory=list)
+    #: a side file with the series key column(s) and attribute columns
+    attribute_file: str | None = None
 
     @field_validator("name")
     @classmethod
     def _name_is_simple(cls, v: str) -> str:
         return _simple_name(v)
+
+    @field_validator("attributes")
+    @classmethod
+    def _attributes_named_once(cls, v: list[str]) -> list[str]:
+        for name in v:
+            if name in DERIVED_SEGMENTS:
+                raise ValueError(
+                    f"{brief(name)} is the name of a segment castgrid derives itself; rename "
+                    "that column in the file"
+                )
+            if not name.strip():
+                raise ValueError("expected column names, got an empty name")
+        dup = sorted({n for n in v if v.count(n) > 1})
+        if dup:
+            raise ValueError(f"{brief(dup[0])} is listed twice")
+        return v
 
     @field_validator("series")
     @classmethod
@@ -91,6 +119,13 @@ class DatasetConfig(_Strict):
                 )
             if self.covariates:
                 raise ValueError("covariates need layout long")
+            if self.attributes and self.attribute_file is None:
+                raise ValueError(
+                    "layout wide has no column for series attributes; give them in an "
+                    "attribute_file (a column 'series' naming each series, then the attributes)"
+                )
+        if self.attribute_file is not None and not self.attributes:
+            raise ValueError("attribute_file needs attributes: the columns to read from it")
         return self
 
     @property
@@ -107,7 +142,9 @@ class WindowsConfig(_Strict):
     An origin is the time of the last training observation. Origins are points on the
     dataset's time axis shared by all its series: counted from the dataset's first time by
     default, or given as ``origins`` (a list of times) or ``first_origin`` (then every
-    ``step``). ``align: end`` instead ties them to each series' last observation.
+    ``step``). ``origins: from_file`` takes them from the forecasts files of the config's
+    ``recorded`` candidates (:mod:`runner.forecasters.recorded`). ``align: end`` instead ties
+    them to each series' last observation.
     """
 
     scheme: Literal["expanding", "sliding"] = "expanding"
@@ -116,7 +153,7 @@ class WindowsConfig(_Strict):
     folds: int | None = Field(default=None, ge=1)
     gap: int = Field(default=0, ge=0)
     align: Literal["start", "end"] = "start"
-    origins: list[int | str] | None = None
+    origins: list[int | str] | Literal["from_file"] | None = None
     first_origin: int | str | None = None
 
     @field_validator("train", mode="before")
@@ -140,10 +177,12 @@ class WindowsConfig(_Strict):
     @field_validator("origins", mode="before")
     @classmethod
     def _origins_are_times(cls, v: Any) -> Any:
-        if v is None:
-            return None
+        if v is None or v == FROM_FILE:
+            return v
         if not isinstance(v, list) or not v:
-            raise ValueError(f"expected a non-empty list of times, got {_shown(v)}")
+            raise ValueError(
+                f"expected a non-empty list of times or {FROM_FILE}, got {_shown(v)}"
+            )
         times = [_config_time(x) for x in v]
         seen: set[Any] = set()
         for t in times:
@@ -248,7 +287,7 @@ class ModelConfig(_Strict):
     """A candidate forecaster; ``grid`` expands it into one candidate per combination."""
 
     name: str
-    #: a kind of :data:`runner.forecasters.registry.KINDS`, or ``plugin``
+    #: a kind of :data:`runner.forecasters.registry.KINDS`, or ``plugin`` / ``panel_plugin``
     kind: str
     params: dict[str, Any] = Field(default_factory=dict)
     grid: dict[str, list[Any]] = Field(default_factory=dict)
@@ -276,10 +315,10 @@ class ModelConfig(_Strict):
 
     @model_validator(mode="after")
     def _entry_for_plugins(self) -> ModelConfig:
-        if self.kind == "plugin" and not self.entry:
-            raise ValueError('kind plugin needs entry: "module:attribute"')
-        if self.kind != "plugin" and self.entry:
-            raise ValueError(f"entry is only for kind plugin, not {self.kind}")
+        if self.kind in ENTRY_KINDS and not self.entry:
+            raise ValueError(f'kind {self.kind} needs entry: "module:attribute"')
+        if self.kind not in ENTRY_KINDS and self.entry:
+            raise ValueError(f"entry is only for kind plugin or panel_plugin, not {self.kind}")
         if self.entry and not re.match(r"^[\w.]+:[\w.]+$", self.entry):
             raise ValueError(f'entry: expected "module:attribute", got {brief(self.entry)}')
         for key in list(self.params) + list(self.grid):
@@ -318,6 +357,8 @@ class Config(_Strict):
     rank_by: str | None = None
     reference: str | None = None
     intervals: list[float] = Field(default_factory=list)
+    #: series attributes (or derived segments) the results are also given by
+    segments: list[str] = Field(default_factory=list)
     execution: ExecutionConfig = Field(default_factory=ExecutionConfig)
     output: OutputConfig = Field(default_factory=OutputConfig)
 
@@ -399,7 +440,20 @@ class Config(_Strict):
         dup = sorted({n for n in names if names.count(n) > 1})
         if dup:
             raise ValueError(f"datasets: name {brief(dup[0])} is used twice")
+        for i, name in enumerate(self.segments):
+            if name in self.segments[:i]:
+                raise ValueError(f"segments: {brief(name)} is listed twice")
+            if name not in DERIVED_SEGMENTS and not any(name in d.attributes
+                                                        for d in self.datasets):
+                raise ValueError(
+                    f"segments: {brief(name)} is neither a derived segment "
+                    f"({', '.join(DERIVED_SEGMENTS)}) nor in any dataset's attributes"
+                )
         return self
+
+    def dataset_segments(self, dataset: DatasetConfig) -> list[str]:
+        """The ``segments`` that apply to ``dataset``: the derived ones and its attributes."""
+        return [s for s in self.segments if s in DERIVED_SEGMENTS or s in dataset.attributes]
 
     def dataset_season(self, dataset: DatasetConfig) -> int | None:
         """Season length set by the config for ``dataset`` (None: derive from frequency)."""

@@ -2,12 +2,14 @@
 
 A task's key (:mod:`runner.execution.cache_keys`) is a SHA-256 over the forecaster's identity
 (kind, entry, canonical parameters, implementation version:
-:func:`runner.forecasters.registry.identity`), the training values it saw (raw float64 bytes), the
-covariates it saw (training and test block, only for forecasters that are given covariates), the
-horizon, the season, the gap between training end and test block, and the interval levels. The
-position of a slice in its series is not part of the key, so appended observations leave the keys
-of every earlier fold unchanged, and a revised value changes exactly the keys of the folds whose
-training slice contains it.
+:func:`runner.forecasters.registry.identity`), the training values it saw (raw float64 bytes, after
+its gaps were filled from the slice alone:
+:func:`runner.execution.tasks.training_values`), the covariates it saw (training and test
+block, only for forecasters that are given covariates), the horizon, the season, the gap
+between training end and test block, and the interval levels. The position of a slice in its
+series is not part of the key, so appended observations leave the keys of every earlier fold
+unchanged, and a revised value changes exactly the keys of the folds whose training slice
+contains it.
 
 The store is ``<cache folder>/forecasts.sqlite`` in WAL mode. Only the parent process writes,
 in small transactions as tasks finish, so a killed run loses at most the tasks in flight. Two
@@ -38,7 +40,7 @@ from typing import TYPE_CHECKING, Any
 from runner.execution.cache_keys import task_keys
 
 if TYPE_CHECKING:  # the command line imports this module at start: keep it light
-    from runner.execution.tasks import ModelTask, SharedData, TaskOutcome
+    from runner.execution.tasks import SharedData, Task, TaskOutcome
 
 CACHE_FILE = "forecasts.sqlite"
 #: Bump when the key or the row layout changes; an older file is then set aside and rebuilt.
@@ -381,9 +383,13 @@ def info_json(info: dict[str, Any]) -> str:
     return json.dumps(info, sort_keys=True, default=plain, allow_nan=True)
 
 
-def outcome_from_row(index: int, row: tuple[Any, ...], horizon: int, n_levels: int
-                     ) -> TaskOutcome | None:
-    """A cached outcome (``cached=True``), or None when the row does not fit this run."""
+def outcome_from_row(index: int, row: tuple[Any, ...], horizon: int, n_levels: int,
+                     rows: int | None = None) -> TaskOutcome | None:
+    """A cached outcome (``cached=True``), or None when the row does not fit this run.
+
+    ``rows`` is the number of series of a panel task's outcome (its arrays are then
+    ``(rows, horizon)`` and ``(levels, rows, horizon)``); None for a per-series task.
+    """
     import numpy as np
 
     from runner.execution.tasks import TaskOutcome
@@ -394,15 +400,17 @@ def outcome_from_row(index: int, row: tuple[Any, ...], horizon: int, n_levels: i
     if reason is not None:
         return TaskOutcome(index, None, None, None, reason=reason, message=message,
                            info=json.loads(info), seconds=float(seconds), cached=True)
-    if len(point) != 8 * horizon:
+    shape = (horizon,) if rows is None else (rows, horizon)
+    size = 8 * int(np.prod(shape))
+    if len(point) != size:
         return None
-    if len(lower) != 8 * horizon * n_levels or len(upper) != len(lower):
+    if len(lower) != size * n_levels or len(upper) != len(lower):
         return None
     return TaskOutcome(
         index,
-        np.frombuffer(point, dtype=np.float64).copy(),
-        np.frombuffer(lower, dtype=np.float64).reshape(n_levels, horizon).copy(),
-        np.frombuffer(upper, dtype=np.float64).reshape(n_levels, horizon).copy(),
+        np.frombuffer(point, dtype=np.float64).reshape(shape).copy(),
+        np.frombuffer(lower, dtype=np.float64).reshape(n_levels, *shape).copy(),
+        np.frombuffer(upper, dtype=np.float64).reshape(n_levels, *shape).copy(),
         info=json.loads(info),
         seconds=float(seconds),
         cached=True,
@@ -410,9 +418,12 @@ def outcome_from_row(index: int, row: tuple[Any, ...], horizon: int, n_levels: i
 
 
 def count_cached(
-    tasks: Sequence[ModelTask], shared: SharedData, cache_path: str | Path | None
+    tasks: Sequence[Task], shared: SharedData, cache_path: str | Path | None
 ) -> int:
-    """How many of ``tasks`` the cache in folder ``cache_path`` can serve (never changes it)."""
+    """How many of ``tasks`` the cache in folder ``cache_path`` can serve (never changes it).
+
+    Counted in (series, fold) tasks: a panel task counts once per series it forecasts.
+    """
     if cache_path is None or not tasks:
         return 0
     try:
@@ -424,9 +435,12 @@ def count_cached(
     if cache is None:
         return 0
     with cache:
+        from runner.execution.panel_tasks import PanelTask, panel_rows
+
         keys = task_keys(tasks, shared)
         found = cache.lookup(keys)
-        return sum(1 for k in keys if k in found)
+        return sum(panel_rows(t, shared) if isinstance(t, PanelTask) else 1
+                   for t, k in zip(tasks, keys) if k in found)
 
 
 # ----------------------------------------------------------------------------- command line

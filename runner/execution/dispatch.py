@@ -1,4 +1,4 @@
-"""Forecasts for the per-series model tasks of a run: cache look-up, execution, cache fill.
+"""Forecasts for the model tasks of a run: cache look-up, execution, cache fill.
 
 :func:`forecast_models` looks every task up in the forecast cache (:mod:`runner.execution.cache`),
 runs the rest (:mod:`runner.execution.engines`: in process, on local worker processes or on dask),
@@ -7,6 +7,10 @@ stores each success in the cache as soon as it arrives, and shows progress
 
 Tasks with the same cache key in one run (the same forecaster on identical training data, for
 example two series with the same history) are computed once and count as cached.
+
+The tasks are per-series (:class:`~runner.execution.tasks.ModelTask`) or panel tasks (one fit
+per dataset and origin, :class:`~runner.execution.panel_tasks.PanelTask`), which go through the
+same cache and engines; a panel outcome holds one row per series it forecast.
 """
 
 from __future__ import annotations
@@ -20,12 +24,14 @@ from typing import Any
 from runner.config import ExecutionConfig
 from runner.execution.engines import execute, not_run
 from runner.execution.progress import Progress
-from runner.execution.tasks import ModelTask, SharedData, TaskOutcome
+from runner.execution.tasks import ModelTask, SharedData, Task, TaskOutcome
 
 
 @dataclass
 class EngineCounts:
     """How the model tasks of a run were served; the four counts add up to the task count.
+
+    Counted in (series, fold) tasks: a panel task counts once per series it forecasts.
 
     ``computed``: forecast in this run; ``cached``: forecasts served from the cache (or from an
     identical task of this run); ``failed``: any failure reason but ``not-run``, including
@@ -38,6 +44,10 @@ class EngineCounts:
     cached: int = 0
     failed: int = 0
     not_run: int = 0
+
+    def __add__(self, other: EngineCounts) -> EngineCounts:
+        return EngineCounts(self.computed + other.computed, self.cached + other.cached,
+                            self.failed + other.failed, self.not_run + other.not_run)
 
 
 class _FromConfig:
@@ -72,7 +82,16 @@ class _Lookup:
     cached_failures: int = 0
 
 
-def _look_up(cache: Any, tasks: Sequence[ModelTask], shared: SharedData) -> _Lookup:
+def _rows(task: Task, shared: SharedData) -> int | None:
+    """Series in the task's outcome arrays: None for a per-series task (1-D arrays)."""
+    if isinstance(task, ModelTask):
+        return None
+    from runner.execution.panel_tasks import panel_rows
+
+    return panel_rows(task, shared)
+
+
+def _look_up(cache: Any, tasks: Sequence[Task], shared: SharedData) -> _Lookup:
     from runner.execution.cache import outcome_from_row, task_keys
 
     n = len(tasks)
@@ -86,7 +105,8 @@ def _look_up(cache: Any, tasks: Sequence[ModelTask], shared: SharedData) -> _Loo
     for pos, key in enumerate(keys):
         row = found.get(key)
         if row is not None:
-            outcome = outcome_from_row(tasks[pos].index, row, shared.horizon, len(shared.levels))
+            outcome = outcome_from_row(tasks[pos].index, row, shared.horizon, len(shared.levels),
+                                       _rows(tasks[pos], shared))
             if outcome is not None:
                 found_all.outcomes[pos] = outcome
                 found_all.cached_failures += not outcome.ok
@@ -99,22 +119,25 @@ def _look_up(cache: Any, tasks: Sequence[ModelTask], shared: SharedData) -> _Loo
     return found_all
 
 
-def _counts(outcomes: Sequence[TaskOutcome]) -> EngineCounts:
+def _counts(
+    outcomes: Sequence[TaskOutcome], tasks: Sequence[Task], shared: SharedData
+) -> EngineCounts:
     counts = EngineCounts()
-    for o in outcomes:
+    for o, t in zip(outcomes, tasks):
+        n = _rows(t, shared) or 1
         if o.reason == "not-run":
-            counts.not_run += 1
+            counts.not_run += n
         elif not o.ok:
-            counts.failed += 1
+            counts.failed += n
         elif o.cached:
-            counts.cached += 1
+            counts.cached += n
         else:
-            counts.computed += 1
+            counts.computed += n
     return counts
 
 
 def forecast_models(
-    tasks: Sequence[ModelTask],
+    tasks: Sequence[Task],
     shared: SharedData,
     execution: ExecutionConfig,
     *,
@@ -123,6 +146,7 @@ def forecast_models(
     quiet: bool = False,
     cache_path: str | Path | None | _FromConfig = FROM_CONFIG,
     on_done: Callable[[TaskOutcome], None] | None = None,
+    label: str = "model tasks",
 ) -> tuple[list[TaskOutcome], EngineCounts]:
     """One outcome per task, in task order, and the computed / cached / failed counts.
 
@@ -130,7 +154,8 @@ def forecast_models(
     relative to the current directory). ``use_cache=False`` (``--no-cache``) neither reads nor
     writes it. ``jobs`` overrides ``execution.jobs``. With ``on_error: stop`` the list still has
     one outcome per task; tasks that did not run have reason ``not-run``. ``on_done`` is called
-    with each computed outcome as it arrives (in completion order).
+    with each computed outcome as it arrives (in completion order). ``label`` names the tasks
+    in the progress line.
     """
     if isinstance(cache_path, _FromConfig):
         cache_path = execution.cache_folder()
@@ -143,7 +168,7 @@ def forecast_models(
         found = _look_up(cache, tasks, shared)
         position = {tasks[p].index: p for p in found.todo}
         served = len(tasks) - len(found.todo) - sum(map(len, found.twins.values()))
-        progress = Progress(len(tasks), cached=served, quiet=quiet)
+        progress = Progress(len(tasks), cached=served, quiet=quiet, label=label)
         progress.failed = found.cached_failures
         identities: dict[int, tuple[str, str]] = {}
 
@@ -187,7 +212,7 @@ def forecast_models(
         for twin in found.twins.get(pos, ()):
             outcomes[twin] = _twin_of(outcome, tasks[twin].index)
     final = [o if o is not None else not_run(t.index) for t, o in zip(tasks, outcomes)]
-    return final, _counts(final)
+    return final, _counts(final, tasks, shared)
 
 
 def _twin_of(outcome: TaskOutcome, index: int) -> TaskOutcome:

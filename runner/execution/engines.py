@@ -1,16 +1,19 @@
-"""Running the per-series model tasks: in this process, on local worker processes, or on dask.
+"""Running model tasks (per series, and panel tasks): in this process, on local worker processes,
+or on dask.
 
 Three ways, one result: every way produces the same :class:`~runner.execution.tasks.TaskOutcome`
-for the same task, since every fit goes through :func:`runner.execution.tasks.run_model_task`.
+for the same task, since every fit goes through :func:`runner.execution.tasks.run_task` (a
+per-series task, or a panel task: one fit per dataset and origin on every series).
 
 * ``jobs=1``: one task after another. Built-in forecasters run in this process; a fit past
   ``fit_timeout`` is stopped by a ``SIGALRM`` timer that raises inside it (this stops Python
   code and sleeps, not a fit stuck inside a C extension). Plugin forecasters (``kind:
-  plugin``) are code castgrid does not know, so they run in one supervised worker process, as
-  with ``jobs >= 2``: a plugin that ends its process (``os._exit``, a crash in C code) or hangs
-  in C code costs its task (reason ``crash`` or ``timeout``), never the run. In-process
-  guards cannot do this: ``os._exit`` skips ``atexit`` handlers and ``finally`` blocks, so
-  the run would end with its results unwritten and whatever exit code the plugin chose.
+  plugin`` and ``panel_plugin``) are code castgrid does not know, so they run in one
+  supervised worker process, as with ``jobs >= 2``: a plugin that ends its process
+  (``os._exit``, a crash in C code) or hangs in C code costs its task (reason ``crash`` or
+  ``timeout``), never the run. In-process guards cannot do this: ``os._exit`` skips
+  ``atexit`` handlers and ``finally`` blocks, so the run would end with its results unwritten
+  and whatever exit code the plugin chose.
 * ``jobs >= 2``, engine ``local``: worker processes supervised by this process. The data of the
   run (:class:`~runner.execution.tasks.SharedData`) is pickled once into a temporary file that each
   worker loads once at start; tasks then travel in batches, and each outcome comes back as soon as
@@ -37,8 +40,8 @@ from collections.abc import Callable, Sequence
 from functools import partial
 
 from runner.config.model import check_jobs
-from runner.execution.tasks import ModelTask, SharedData, TaskOutcome, failed
-from runner.forecasters.registry import PLUGIN
+from runner.execution.tasks import SharedData, Task, TaskOutcome, failed
+from runner.forecasters.registry import PANEL_PLUGIN, PLUGIN
 
 OnDone = Callable[[TaskOutcome], None]
 
@@ -59,7 +62,7 @@ def not_run(index: int) -> TaskOutcome:
 
 
 def execute(
-    tasks: Sequence[ModelTask],
+    tasks: Sequence[Task],
     shared: SharedData,
     *,
     jobs: int = 1,
@@ -99,7 +102,7 @@ def execute(
 
 
 def _one_at_a_time(
-    tasks: Sequence[ModelTask],
+    tasks: Sequence[Task],
     shared: SharedData,
     fit_timeout: float,
     stop: bool,
@@ -110,7 +113,7 @@ def _one_at_a_time(
     from runner.execution.serial import run_serial
     from runner.execution.workers import run_workers
 
-    plugin = [shared.forecasters[t.forecaster].kind == PLUGIN for t in tasks]
+    plugin = [shared.forecasters[t.forecaster].kind in (PLUGIN, PANEL_PLUGIN) for t in tasks]
     parts = (
         ([i for i, p in enumerate(plugin) if not p], run_serial),
         ([i for i, p in enumerate(plugin) if p], partial(run_workers, jobs=1)),

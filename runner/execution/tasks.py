@@ -2,7 +2,9 @@
 
 Tasks and their outcomes are small records that cross process boundaries. The data they index
 (``SharedData``) is shipped to each worker once per run, never per task, and a task never
-raises: whatever goes wrong is returned as an outcome with a reason and a message.
+raises: whatever goes wrong is returned as an outcome with a reason and a message. The tasks of
+models trained across series (one per dataset, forecaster and origin) are
+:class:`runner.execution.panel_tasks.PanelTask`; :func:`run_task` runs either kind.
 """
 
 from __future__ import annotations
@@ -10,12 +12,16 @@ from __future__ import annotations
 import time
 import traceback
 from dataclasses import dataclass, field
-from typing import Any
+from typing import TYPE_CHECKING, Any, Union
 
 import numpy as np
 
 from runner.config import ForecasterSpec
 from runner.forecasters.contract import as_forecast
+from runner.forecasters.gaps import fill_slice, observed_count
+
+if TYPE_CHECKING:
+    from runner.execution.panel_tasks import PanelLayout, PanelTask
 
 
 @dataclass(frozen=True)
@@ -45,6 +51,12 @@ class SharedData:
     forecasters: list[ForecasterSpec]
     horizon: int
     levels: tuple[float, ...]
+    #: per dataset, what its panel tasks index into (None when it has no panel forecaster)
+    panels: list[PanelLayout | None] = field(default_factory=list)
+
+
+#: A task of either kind: per series (one fit per series and fold) or panel (one per origin).
+Task = Union[ModelTask, "PanelTask"]
 
 
 @dataclass
@@ -77,16 +89,43 @@ def failed(index: int, reason: str, message: str, seconds: float = 0.0) -> TaskO
     return TaskOutcome(index, None, None, None, reason=reason, message=message, seconds=seconds)
 
 
+def training_values(task: ModelTask, shared: SharedData) -> np.ndarray:
+    """The training values ``task``'s forecaster sees: a fresh copy of its slice, with missing
+    values filled from the slice alone (:func:`runner.forecasters.gaps.fill_slice`).
+
+    The cache key hashes exactly these values, so a cached forecast is one made from what the
+    forecaster would see now.
+    """
+    return fill_slice(shared.values[task.dataset][task.start : task.end])
+
+
+def error_outcome(index: int, exc: BaseException, seconds: float) -> TaskOutcome:
+    """The failed outcome of a task whose forecaster raised ``exc`` (reason ``error``): the
+    exception's type and message, and the file and line it was raised at."""
+    last = traceback.extract_tb(exc.__traceback__)[-1:]
+    where = f" at {last[0].filename.rsplit('/', 1)[-1]}:{last[0].lineno}" if last else ""
+    return failed(index, "error", f"{type(exc).__name__}: {exc}{where}", seconds)
+
+
+def run_task(task: Task, shared: SharedData) -> TaskOutcome:
+    """Run a per-series or a panel task; never raises."""
+    if isinstance(task, ModelTask):
+        return run_model_task(task, shared)
+    from runner.execution.panel_tasks import run_panel_task
+
+    return run_panel_task(task, shared)
+
+
 def task_slices(
     task: ModelTask, shared: SharedData, with_covariates: bool
 ) -> tuple[np.ndarray, np.ndarray | None, np.ndarray | None]:
-    """Training values, training covariates and future covariates of ``task`` (views).
+    """Training values (filled, a copy), training and future covariates (views) of ``task``.
 
     The future covariates run from the end of training to the end of the test block: with a
     ``gap`` the forecaster forecasts through the gap, and only the last ``horizon`` steps are
     scored.
     """
-    y = shared.values[task.dataset][task.start : task.end]
+    y = training_values(task, shared)
     cov = shared.covariates[task.dataset] if with_covariates else None
     if cov is None:
         return y, None, None
@@ -108,9 +147,14 @@ def run_model_task(task: ModelTask, shared: SharedData) -> TaskOutcome:
     try:
         model = build(spec)
         uses_cov = accepts_covariates(spec)
+        # y is a copy, so a forecaster that writes into its input cannot damage the shared data
         y, cov_train, cov_test = task_slices(task, shared, uses_cov)
-        # A copy, so that a forecaster that writes into its input cannot damage the shared data.
-        y = np.array(y, dtype=float)
+        if len(y) and observed_count(y) == 0:
+            return failed(
+                task.index, "too-short",
+                "the training slice has no observed value (every one is missing)",
+                time.perf_counter() - t0,
+            )
         fit_kwargs: dict[str, Any] = {"season": task.season}
         predict_kwargs: dict[str, Any] = {"levels": shared.levels}
         if cov_train is not None:
@@ -122,11 +166,7 @@ def run_model_task(task: ModelTask, shared: SharedData) -> TaskOutcome:
         steps = lead_steps(task, shared.horizon)
         raw = fitted.predict(steps, **predict_kwargs)
     except Exception as exc:
-        last = traceback.extract_tb(exc.__traceback__)[-1:]
-        where = f" at {last[0].filename.rsplit('/', 1)[-1]}:{last[0].lineno}" if last else ""
-        return failed(
-            task.index, "error", f"{type(exc).__name__}: {exc}{where}", time.perf_counter() - t0
-        )
+        return error_outcome(task.index, exc, time.perf_counter() - t0)
     try:
         fc = as_forecast(raw, steps, shared.levels)
     except ValueError as exc:

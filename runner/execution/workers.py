@@ -26,7 +26,7 @@ from pathlib import Path
 from typing import Any
 
 from runner.execution.serial import timeout_outcome
-from runner.execution.tasks import ModelTask, SharedData, TaskOutcome, failed, run_model_task
+from runner.execution.tasks import SharedData, Task, TaskOutcome, failed, run_task
 
 #: Largest number of tasks sent to a worker at once. Outcomes stream back one by one, so the
 #: batch size only bounds the dispatch overhead and the imbalance at the end of a run.
@@ -246,7 +246,7 @@ class _Supervisor:
     """
 
     def __init__(
-        self, tasks: Sequence[ModelTask], data_file: str | None, jobs: int, fit_timeout: float,
+        self, tasks: Sequence[Task], data_file: str | None, jobs: int, fit_timeout: float,
         *, shared: SharedData | None = None, folder: str | None = None,
     ) -> None:
         self.tasks = tasks
@@ -386,7 +386,7 @@ class _Supervisor:
 
 
 def run_workers(
-    tasks: Sequence[ModelTask],
+    tasks: Sequence[Task],
     shared: SharedData,
     jobs: int,
     fit_timeout: float,
@@ -455,7 +455,7 @@ def _serve(read_fd: int, write_fd: int, shared: SharedData) -> None:
             if message[0] == "stop":
                 return
             for task in message[1]:
-                outcome = run_model_task(task, shared)
+                outcome = run_task(task, shared)
                 try:
                     data = pickle.dumps(("outcome", outcome), protocol=pickle.HIGHEST_PROTOCOL)
                 except Exception as exc:  # e.g. an info_ a plugin filled with unpicklable things

@@ -2,7 +2,9 @@
 
 Built-in baselines and models are registered here under their ``kind`` and load through the
 same path as a user's plugin (``kind: plugin`` with ``entry: mypackage.mod:Class``), so the
-protocol the plugins must honour is the one the built-ins are held to.
+protocol the plugins must honour is the one the built-ins are held to. A user's model trained
+across series (``kind: panel_plugin``, the protocol
+:class:`~runner.forecasters.contract.PanelForecaster`) loads the same way.
 """
 
 from __future__ import annotations
@@ -27,6 +29,9 @@ class Kind:
     ``derived`` candidates make no forecast of their own: their forecasts are computed from
     other forecasters' forecasts of the same run (:mod:`runner.forecasters.derived`), so no
     model task is built for them and they have no ``fit`` / ``predict``.
+    ``from_file`` candidates fit nothing: their forecasts are read from a file
+    (:mod:`runner.forecasters.recorded`), so no model task is built for them and they have no
+    ``fit`` / ``predict``.
     """
 
     name: str
@@ -36,6 +41,7 @@ class Kind:
     default: bool = False
     seasonal_only: bool = False
     derived: bool = False
+    from_file: bool = False
 
 
 _B = "runner.forecasters.benchmarks"
@@ -75,12 +81,16 @@ KINDS: tuple[Kind, ...] = (
     Kind("best_so_far", f"{_D}:BestSoFar", "candidate",
          "per series, the listed forecaster that scored best at earlier folds only",
          derived=True),
+    Kind("recorded", "runner.forecasters.recorded:Recorded", "candidate",
+         "forecasts made elsewhere, read from a file and scored like any other", from_file=True),
 )
 BY_KIND: dict[str, Kind] = {k.name: k for k in KINDS}
 #: ``kind`` -> ``module:attribute`` of every built-in.
 BUILTIN: dict[str, str] = {k.name: k.entry for k in KINDS}
 #: The kind of a user's own forecaster, named by ``entry: module:attribute``.
 PLUGIN = "plugin"
+#: The kind of a user's own model trained across the series of a dataset (one fit per origin).
+PANEL_PLUGIN = "panel_plugin"
 
 
 def kinds_for(role: str) -> list[str]:
@@ -92,14 +102,23 @@ def is_derived(spec: ForecasterSpec) -> bool:
     """True for candidates whose forecasts are computed from other forecasters' forecasts."""
     kind = BY_KIND.get(spec.kind)
     return kind is not None and kind.derived
+def is_from_file(spec: ForecasterSpec) -> bool:
+    """True for candidates whose forecasts are read from a file instead of fitted."""
+    kind = BY_KIND.get(spec.kind)
+    return kind is not None and kind.from_file
 
 
 def entry_of(spec: ForecasterSpec) -> str:
     """The ``module:attribute`` that builds ``spec``."""
-    if spec.kind == PLUGIN:
+    if spec.kind in (PLUGIN, PANEL_PLUGIN):
         assert spec.entry is not None
         return spec.entry
     return BUILTIN[spec.kind]
+
+
+def is_panel(spec: ForecasterSpec) -> bool:
+    """True for forecasters fit once per origin on every series of a dataset."""
+    return spec.kind == PANEL_PLUGIN
 
 
 @cache
@@ -157,7 +176,7 @@ def identity(spec: ForecasterSpec) -> str:
         "params": spec.params,
         "version": implementation_version(spec),
     }
-    if spec.kind == "plugin":
+    if spec.kind in (PLUGIN, PANEL_PLUGIN):
         fields["entry"] = entry_of(spec)
     return json.dumps(
         fields,
@@ -175,8 +194,9 @@ def is_vectorised(spec: ForecasterSpec) -> bool:
 def accepts_covariates(spec: ForecasterSpec) -> bool:
     """True for forecasters that are given the datasets' covariates.
 
-    Built-ins say so with a ``uses_covariates`` class attribute; plugins always receive them,
-    since the plugin protocol takes ``covariates`` in both ``fit`` and ``predict``.
+    Built-ins say so with a ``uses_covariates`` class attribute; plugins (per-series and
+    panel) receive them unless their class says ``uses_covariates = False``, since both plugin
+    protocols take covariates.
     """
     factory = load_entry(entry_of(spec))
-    return bool(getattr(factory, "uses_covariates", spec.kind == "plugin"))
+    return bool(getattr(factory, "uses_covariates", spec.kind in (PLUGIN, PANEL_PLUGIN)))

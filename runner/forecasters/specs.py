@@ -12,7 +12,7 @@ from typing import Any
 
 from runner.config import Config, ForecasterSpec
 from runner.errors import ConfigError, brief, clip
-from runner.forecasters.registry import BY_KIND, KINDS, PLUGIN, kinds_for
+from runner.forecasters.registry import BY_KIND, KINDS, PANEL_PLUGIN, PLUGIN, kinds_for
 
 
 def _format_value(v: Any) -> str:
@@ -85,7 +85,7 @@ def check_specs(cfg: Config, source: str) -> None:
                 f"{source}: baselines[{i}]: unknown baseline {brief(b.kind)}; expected one of "
                 f"{', '.join(baselines)}"
             )
-    models = [*kinds_for("candidate"), PLUGIN]
+    models = [*kinds_for("candidate"), PLUGIN, PANEL_PLUGIN]
     for i, m in enumerate(cfg.models):
         if m.kind not in models:
             hint = " (it is a baseline: list it under baselines)" if m.kind in baselines else ""

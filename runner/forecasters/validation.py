@@ -19,9 +19,17 @@ from typing import Any
 
 from runner.config import Config, ForecasterSpec, ModelConfig
 from runner.errors import ConfigError, PluginError, clip
-from runner.forecasters.contract import protocol_problem
+from runner.forecasters.contract import panel_protocol_problem, protocol_problem
 from runner.forecasters.derived import derived_problem
-from runner.forecasters.registry import entry_of, is_derived, load_entry
+from runner.forecasters.registry import (
+    PANEL_PLUGIN,
+    PLUGIN,
+    entry_of,
+    is_derived,
+    is_from_file,
+    is_panel,
+    load_entry,
+)
 from runner.forecasters.specs import baseline_specs, candidate_specs, check_specs
 
 
@@ -65,7 +73,7 @@ def _plugin_folder_importable(cfg: Config, config_path: str | Path) -> None:
     (:mod:`runner.execution.workers`, :mod:`runner.execution.dask_cluster`), so they find the
     module too.
     """
-    if not any(m.kind == "plugin" for m in cfg.models):
+    if not any(m.kind in (PLUGIN, PANEL_PLUGIN) for m in cfg.models):
         return
     folder = str(Path(config_path).resolve().parent)
     if folder not in sys.path:
@@ -82,7 +90,7 @@ def _build(
     the object breaks the protocol) are raised at once.
     """
     entry = entry_of(spec)
-    field = f"{loc}.entry" if spec.kind == "plugin" else f"{loc} ({spec.kind})"
+    field = f"{loc}.entry" if spec.kind in (PLUGIN, PANEL_PLUGIN) else f"{loc} ({spec.kind})"
     try:
         factory = load_entry(entry)
     except PluginError as exc:
@@ -124,7 +132,13 @@ def _build(
             f"{src}: {field}: building {clip(spec.name, 80)} raised {type(exc).__name__}: "
             f"{clip(str(exc))}"
         ) from None
-    problem = protocol_problem(obj)
+    # a recorded candidate checks its params when built, and has no fit / predict
+    if is_from_file(spec):
+        problem = None
+    elif is_panel(spec):
+        problem = panel_protocol_problem(obj)
+    else:
+        problem = protocol_problem(obj)
     if problem is not None:
         raise PluginError(f"{src}: {field}: {entry} {problem}")
     return obj, None

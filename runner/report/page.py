@@ -41,7 +41,12 @@ from runner.report.plots import (
 )
 from runner.report.reading import DatasetView, Results, complete_flags, dataset_views, read_results
 from runner.report.style import CSS, RC
-from runner.report.tables import failures_html, leaderboard_html, metrics_html
+from runner.report.tables import (
+    failures_html,
+    leaderboard_html,
+    metrics_html,
+    segment_skill_html,
+)
 
 REPORT = "report.html"
 PLOTS = "plots"
@@ -241,6 +246,47 @@ def _dataset_plots(view: DatasetView, results: Results) -> list[Plot]:
     return out
 
 
+def _segment_sections(view: DatasetView, results: Results) -> tuple[str, list[Plot]]:
+    """Per segment attribute: the skill of every forecaster per segment as one shaded table,
+    and the forecasts of the best and worst series of each segment (empty without segments)."""
+    from runner.scoring.segments import segment_skill
+
+    seg, members = results.segments, results.series_segments
+    if seg is None:
+        return "", []
+    mine = seg[seg["dataset"] == view.dataset]
+    parts: list[str] = []
+    plots: list[Plot] = []
+    order = [str(n) for n in view.board["forecaster"]]
+    for attribute in dict.fromkeys(str(a) for a in mine["attribute"]):
+        frame = segment_skill(mine, view.dataset, attribute, order=order)
+        parts.append(f"<h3>Skill per {html.escape(attribute)} (1 - {view.rank_by}_rel, %)</h3>"
+                     + segment_skill_html(frame, view.reference,
+                                          label=f"skill per {attribute} of {view.dataset}"))
+        if members is None or attribute not in members.columns or not results.has_forecasts:
+            continue
+        rows = members[members["dataset"].astype(str) == view.dataset]
+        best = view.best()
+        drawn_names = [n for n in (best, view.reference) if n is not None]
+        for value in frame.columns:
+            series = list(rows.loc[rows[attribute].astype(str) == str(value), "series"]
+                          .astype(str))
+            slug = "".join(ch if ch.isalnum() else "-" for ch in f"{attribute}-{value}")
+            p = Plot(f"{view.dataset}-forecasts-{slug}.png",
+                     f"forecasts on {attribute} {value}", "")
+            # only the rows drawn are read: the best and worst series of this segment
+            picks = (series_extremes(view, results.scores, best, series)
+                     if best is not None and results.scores is not None else series)
+            part = results.forecast_rows(view.dataset, picks, drawn_names)
+            sketch, note = sketch_forecasts(view, part, results.scores, series=series,
+                                            title=f"{attribute} {value}")
+            p.take(sketch)
+            p.caption = f"Best and worst series of this segment (by mean {view.rank_by}): {note}."
+            p.missing = note
+            plots.append(p)
+    return "".join(parts), plots
+
+
 def _atomic_write(path: Path, data: bytes) -> None:
     fd, tmp = tempfile.mkstemp(dir=path.parent, prefix=f".{path.name}.", suffix=".tmp")
     try:
@@ -263,16 +309,20 @@ def build_report(out_dir: Path, previous: Path | None = None) -> Path:
     """
     out_dir = Path(out_dir)
     results = read_results(out_dir, forecasts=False)
-    per_view = [(view, _dataset_plots(view, results)) for view in dataset_views(results)]
-    plots = [p for _, mine in per_view for p in mine]
+    per_view = []
+    for view in dataset_views(results):
+        segment_html, segment_plots = _segment_sections(view, results)
+        per_view.append((view, _dataset_plots(view, results) + segment_plots, segment_html))
+    plots = [p for _, mine, _ in per_view for p in mine]
     places = [out_dir / PLOTS] + ([Path(previous) / PLOTS] if previous is not None else [])
     render(plots, places)
     sections = [
         f"<h2>dataset {html.escape(view.dataset)}</h2>"
         f'<div class="card">{_summary_html(view)}{leaderboard_html(view)}'
-        f"<h3>Every metric (mean \u00b1 sd over folds)</h3>{metrics_html(view)}</div>"
+        f"<h3>Every metric (mean \u00b1 sd over folds)</h3>{metrics_html(view)}"
+        f"{segment_html}</div>"
         f'<div class="grid">{"".join(_plot_html(p) for p in mine)}</div>'
-        for view, mine in per_view
+        for view, mine, segment_html in per_view
     ]
     page = _page(results.manifest, sections, failures_html(results.failures))
 

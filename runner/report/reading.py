@@ -27,8 +27,10 @@ from runner.output.reader import (
     read_columns,
     read_leaderboard,
     read_manifest,
+    read_segment_leaderboard,
     read_table,
 )
+from runner.output.segments import SERIES_SEGMENTS
 
 if TYPE_CHECKING:  # the command line imports this module at start; pandas loads when used
     import pandas as pd
@@ -53,6 +55,9 @@ class Results:
     forecasts: pd.DataFrame | None
     failures: pd.DataFrame | None
     history: list[dict[str, Any]] | None
+    #: leaderboard_segments.csv and series_segments.csv (None: a run without ``segments:``)
+    segments: pd.DataFrame | None = None
+    series_segments: pd.DataFrame | None = None
     folder: ResultsFolder | None = None
     has_forecasts: bool = False
 
@@ -121,6 +126,8 @@ def read_results(out_dir: Path, *, forecasts: bool = True) -> Results:
         forecasts=frame,
         failures=_optional(folder, FAILURES, base + ("reason",)),
         history=_history(folder),
+        segments=read_segment_leaderboard(folder, rank_by),
+        series_segments=_optional(folder, SERIES_SEGMENTS, ("dataset", "series")),
         folder=folder,
         has_forecasts=has_forecasts,
     )

@@ -1,4 +1,10 @@
-"""Forecasting every task of a plan and scoring it: the computational core of a run."""
+"""Forecasting every task of a plan and scoring it: the computational core of a run.
+
+A dataset read with ``missing: interpolate`` keeps its missing values as NaN. Every forecaster
+sees its training slice filled from that slice alone (:mod:`runner.forecasters.gaps`), and a
+missing actual in a test block is not scored: it is left out of every metric's mean, and the
+run reports how many there were (a note on stderr and ``unscored_actuals`` in the manifest).
+"""
 
 from __future__ import annotations
 
@@ -10,7 +16,9 @@ import numpy as np
 from runner.config import ForecasterSpec
 from runner.execution.dispatch import EngineCounts, forecast_models
 from runner.execution.model_tasks import build_model_tasks
-from runner.execution.tasks import ModelTask
+from runner.execution.panel_tasks import build_panel_tasks, panel_results, panel_rows
+from runner.execution.tasks import ModelTask, TaskOutcome
+from runner.forecasters.recorded import recorded_forecasts
 from runner.forecasters.registry import build, is_vectorised
 from runner.forecasters.slices import SliceSummary, summarise
 from runner.scoring import metrics as M
@@ -47,6 +55,16 @@ class DatasetResult:
     results: list[ForecasterResult]
     summary: SliceSummary
     warnings: list[str] = field(default_factory=list)
+    notes: list[str] = field(default_factory=list)
+
+    @property
+    def unscored_actuals(self) -> int:
+        """Missing actuals in the test blocks (not scored); each (series, time) counted once."""
+        missing = np.isnan(self.actual)
+        if not missing.any():
+            return 0
+        steps = np.arange(self.actual.shape[1])
+        return int(len(np.unique((self.plan.test_starts[:, None] + steps[None, :])[missing])))
 
 
 @dataclass
@@ -128,6 +146,10 @@ def evaluate(
             spec = plan.forecasters[f]
             if is_vectorised(spec):
                 per_dataset[d][f] = _baseline_result(spec, dp, summaries[d], horizon, levels)
+    for rec in recorded_forecasts(plan):  # forecasts read from files: no fit, no task
+        per_dataset[rec.dataset][rec.forecaster] = ForecasterResult(
+            plan.forecasters[rec.forecaster], rec.point, rec.lower, rec.upper, rec.reason,
+            rec.message)
     model_tasks, shared = build_model_tasks(plan)
 
     # Per-series models: through the engine (cache, workers, fault isolation).
@@ -173,6 +195,25 @@ def evaluate(
                 plan.forecasters[f], point, lower, upper, reason, message, info=info
             )
 
+    # Models trained across series: one task per (dataset, forecaster, origin), same engine.
+    panel_tasks = build_panel_tasks(plan, first_index=len(model_tasks))
+    if panel_tasks:
+        panel_out: list[TaskOutcome] = []
+        if stopped:  # on_error: stop, and a per-series task failed: no panel task runs
+            counts.not_run += sum(panel_rows(t, shared) for t in panel_tasks)
+        else:
+            panel_out, panel_counts = forecast_models(
+                panel_tasks, shared, cfg.execution, use_cache=use_cache, jobs=jobs,
+                quiet=quiet, cache_path=cfg.execution.cache_folder(), label="panel fits",
+            )
+            counts = counts + panel_counts
+            stopped = any(o.reason == "not-run" for o in panel_out)
+        for (d, f), pr in panel_results(plan, panel_tasks, panel_out, shared).items():
+            per_dataset[d][f] = ForecasterResult(
+                plan.forecasters[f], pr.point, pr.lower, pr.upper, pr.reason, pr.message,
+                info=pr.info,
+            )
+
     add_derived(plan, summaries, per_dataset)  # combinations, selections: from the forecasts
 
     # Scores: computed from the forecasts at every run, so a new metric never refits.
@@ -180,6 +221,8 @@ def evaluate(
     results = []
     for d, dp in enumerate(plan.datasets):
         s = summaries[d]
+        # missing actuals stay NaN: the metrics leave them out (never filled from a forecast's
+        # own training slice, nor from anything else)
         actual = dp.panel.values[dp.test_starts[:, None] + steps[None, :]]
         mase_scale = M.scale_mase(s.seasonal_abs, s.length, dp.panel.season)
         rmsse_scale = M.scale_rmsse(s.diff_sq, s.length)
@@ -190,8 +233,18 @@ def evaluate(
             )
             r.loss = M.pointwise_loss(cfg.rank_by, actual, r.point, mase_scale, rmsse_scale)
         warnings = _undefined_warnings(dp, ordered, cols)
+        result = DatasetResult(dp, actual, ordered, s, warnings)
+        if result.unscored_actuals:
+            hit = np.isnan(actual).any(axis=1)
+            result.notes.append(
+                f"dataset {dp.panel.name}: {result.unscored_actuals} missing actual(s) in the "
+                f"test blocks of {len(np.unique(dp.series[hit]))} series are not scored (left "
+                "out of every metric's mean)"
+            )
         if not quiet:
+            for note in result.notes:
+                print(f"castgrid: note: {note}", file=sys.stderr)
             for w in warnings:
                 print(f"castgrid: warning: {w}", file=sys.stderr)
-        results.append(DatasetResult(dp, actual, ordered, s, warnings))
+        results.append(result)
     return Evaluation(plan, results, counts, stopped)

@@ -58,21 +58,26 @@ def _rank_order(
     return ranks
 
 
-def _shared_tasks(r: ForecasterResult, ref: ForecasterResult, rank_by: str) -> np.ndarray:
-    """Tasks both ``r`` and the reference completed and have a rank-metric score for."""
+def _shared_tasks(
+    r: ForecasterResult, ref: ForecasterResult, rank_by: str, keep: np.ndarray,
+    failed: np.ndarray, ref_failed: np.ndarray,
+) -> np.ndarray:
+    """Tasks among ``keep`` that both ``r`` and the reference completed (``failed`` /
+    ``ref_failed``: their failed-task masks) and have a rank-metric score for."""
     score = r.scores[rank_by].per_task
     ref_score = ref.scores[rank_by].per_task
-    return ~r.failed & ~ref.failed & ~np.isnan(score) & ~np.isnan(ref_score)
+    return keep & ~failed & ~ref_failed & ~np.isnan(score) & ~np.isnan(ref_score)
 
 
 def _relative(
-    r: ForecasterResult, ref: ForecasterResult, origin: np.ndarray, rank_by: str
+    r: ForecasterResult, ref: ForecasterResult, origin: np.ndarray, rank_by: str,
+    both: np.ndarray,
 ) -> float:
-    """Rank metric of ``r`` over the reference's, both as fold means over the shared tasks.
+    """Rank metric of ``r`` over the reference's, both as fold means over the shared tasks
+    ``both`` (:func:`_shared_tasks`).
 
     NaN when there is no shared task, or the reference's mean is 0 or undefined.
     """
-    both = _shared_tasks(r, ref, rank_by)
     if not both.any():
         return float("nan")
     value, _ = _fold_mean_sd(r.scores[rank_by].per_task[both], origin[both])
@@ -86,11 +91,10 @@ def _relative(
 
 def _versus_reference(
     r: ForecasterResult, ref: ForecasterResult, dr: DatasetResult, rank_by: str, horizon: int,
-    step: int,
+    step: int, both: np.ndarray,
 ) -> dict[str, object]:
     from runner.scoring.significance import compare_with_reference
 
-    both = _shared_tasks(r, ref, rank_by)
     score = r.scores[rank_by].per_task
     ref_score = ref.scores[rank_by].per_task
     if not both.any():
@@ -137,59 +141,86 @@ def _pooled_root(per_task: np.ndarray) -> float:
 
 def build_leaderboard(ev: Evaluation) -> pd.DataFrame:
     """The leaderboard as a DataFrame in its fixed row and column order."""
+    rows = [row for dr in ev.datasets for row in dataset_rows(ev, dr)]
+    return pd.DataFrame(rows, columns=board_columns(ev))
+
+
+def board_columns(ev: Evaluation) -> list[str]:
+    """The leaderboard's columns, in order."""
+    cfg = ev.plan.config
+    head = ["dataset", "rank", "forecaster", "kind", "role", "series", "folds", "tasks", "failed",
+            "complete"]
+    cols = M.columns(cfg.metrics, tuple(cfg.intervals))
+    metric_cols = [f"{c}_{s}" for c in cols for s in _summaries(c)]
+    tail = [f"{cfg.rank_by}_rel", "win_share", "dm_better", "dm_worse", "wilcoxon_p",
+            "beats_reference"]
+    return head + metric_cols + tail
+
+
+def dataset_rows(
+    ev: Evaluation, dr: DatasetResult, keep: np.ndarray | None = None
+) -> list[dict[str, object]]:
+    """The leaderboard rows of one dataset, ranked, over the tasks ``keep`` selects.
+
+    ``keep`` is a boolean mask over the dataset's (series, fold) tasks; None takes them all
+    (the leaderboard). A subset (the tasks of one segment's series) gives that subset's
+    leaderboard by the same rules: fold means and sds over its tasks, ``complete`` when none
+    of its tasks failed, the relative score and every significance column on its tasks both
+    the forecaster and the reference completed, and ranks within it.
+    """
     cfg = ev.plan.config
     cols = M.columns(cfg.metrics, tuple(cfg.intervals))
     rank_by = cfg.rank_by
-    rows = []
-    for dr in ev.datasets:
-        dp = dr.plan
-        ref = next(r for r in dr.results if r.spec.name == dp.reference)
-        block = []
-        for r in dr.results:
-            ok = ~r.failed
-            row: dict[str, object] = {
-                "dataset": dp.panel.name,
-                "forecaster": r.spec.name,
-                "kind": r.spec.kind,
-                "role": r.spec.role,
-                "series": int(len(np.unique(dp.series[ok]))),
-                "folds": int(len(np.unique(dp.origin[ok]))),
-                "tasks": int(ok.sum()),
-                "failed": int(r.failed.sum()),
-                "complete": not bool(r.failed.any()),
-            }
-            for col in cols:
-                mean, sd = _fold_mean_sd(r.scores[col].per_task, dp.origin)
-                row[f"{col}_mean"], row[f"{col}_sd"] = mean, sd
-                if M.metric_of(col).reduction == "root_mean":
-                    row[f"{col}_pooled"] = _pooled_root(r.scores[col].per_task)
-            block.append(row)
-        for row, r in zip(block, dr.results):
-            rel = _relative(r, ref, dp.origin, rank_by)
-            row[f"{rank_by}_rel"] = rel
-            if r is ref:
-                row.update(win_share=np.nan, dm_better=np.nan, dm_worse=np.nan,
-                           wilcoxon_p=np.nan)
-                row["beats_reference"] = False
-                continue
-            vs = _versus_reference(r, ref, dr, rank_by, cfg.horizon, _origin_spacing(ev, dp))
-            significant = vs.pop("significant")
-            row.update(vs)
-            row["beats_reference"] = bool(
-                np.isfinite(rel) and rel < 1.0 and significant and row["failed"] == 0
-            )
-        ranks = _rank_order(
-            np.array([b[f"{rank_by}_mean"] for b in block], dtype=float),
-            [str(b["forecaster"]) for b in block],
-            rank_by,
-            np.array([b["complete"] for b in block], dtype=bool),
+    dp = dr.plan
+    keep = np.ones(dp.n_tasks, dtype=bool) if keep is None else np.asarray(keep, dtype=bool)
+    origin = dp.origin[keep]
+    ref = next(r for r in dr.results if r.spec.name == dp.reference)
+    # each result's failed mask once: the property rebuilds it from the reasons at every call
+    failed_of = [r.failed for r in dr.results]
+    ref_failed = ref.failed
+    block = []
+    for r, r_failed in zip(dr.results, failed_of):
+        ok = ~r_failed & keep
+        failed = r_failed & keep
+        row: dict[str, object] = {
+            "dataset": dp.panel.name,
+            "forecaster": r.spec.name,
+            "kind": r.spec.kind,
+            "role": r.spec.role,
+            "series": int(len(np.unique(dp.series[ok]))),
+            "folds": int(len(np.unique(dp.origin[ok]))),
+            "tasks": int(ok.sum()),
+            "failed": int(failed.sum()),
+            "complete": not bool(failed.any()),
+        }
+        for col in cols:
+            per_task = r.scores[col].per_task[keep]
+            mean, sd = _fold_mean_sd(per_task, origin)
+            row[f"{col}_mean"], row[f"{col}_sd"] = mean, sd
+            if M.metric_of(col).reduction == "root_mean":
+                row[f"{col}_pooled"] = _pooled_root(per_task)
+        block.append(row)
+    for row, r, r_failed in zip(block, dr.results, failed_of):
+        both = _shared_tasks(r, ref, rank_by, keep, r_failed, ref_failed)
+        rel = _relative(r, ref, dp.origin, rank_by, both)
+        row[f"{rank_by}_rel"] = rel
+        if r is ref:
+            row.update(win_share=np.nan, dm_better=np.nan, dm_worse=np.nan,
+                       wilcoxon_p=np.nan)
+            row["beats_reference"] = False
+            continue
+        vs = _versus_reference(r, ref, dr, rank_by, cfg.horizon, _origin_spacing(ev, dp), both)
+        significant = vs.pop("significant")
+        row.update(vs)
+        row["beats_reference"] = bool(
+            np.isfinite(rel) and rel < 1.0 and significant and row["failed"] == 0
         )
-        for b, rank in zip(block, ranks):
-            b["rank"] = int(rank)
-        rows.extend(sorted(block, key=lambda b: b["rank"]))
-    head = ["dataset", "rank", "forecaster", "kind", "role", "series", "folds", "tasks", "failed",
-            "complete"]
-    metric_cols = [f"{c}_{s}" for c in cols for s in _summaries(c)]
-    tail = [f"{rank_by}_rel", "win_share", "dm_better", "dm_worse", "wilcoxon_p",
-            "beats_reference"]
-    return pd.DataFrame(rows, columns=head + metric_cols + tail)
+    ranks = _rank_order(
+        np.array([b[f"{rank_by}_mean"] for b in block], dtype=float),
+        [str(b["forecaster"]) for b in block],
+        rank_by,
+        np.array([b["complete"] for b in block], dtype=bool),
+    )
+    for b, rank in zip(block, ranks):
+        b["rank"] = int(rank)
+    return sorted(block, key=lambda b: b["rank"])

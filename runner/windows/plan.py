@@ -2,13 +2,16 @@
 
 from __future__ import annotations
 
+from collections.abc import Callable
 from dataclasses import dataclass, field
 from pathlib import Path
+from typing import Any
 
 import numpy as np
 
 from runner.config import Config, ForecasterSpec, load_config
-from runner.data import Panel, load_panel, season_for_frequency
+from runner.config.model import FROM_FILE
+from runner.data import Panel, attach_attributes, load_panel, season_for_frequency
 from runner.errors import ConfigError, DataError
 from runner.windows.axis import TimeAxis, time_axis
 from runner.windows.folds import (
@@ -67,6 +70,8 @@ class Plan:
     config_path: Path
     forecasters: list[ForecasterSpec]
     datasets: list[DatasetPlan]
+    #: forecasts read from files, per recorded candidate (:mod:`runner.forecasters.recorded`)
+    recorded: dict[str, Any] = field(default_factory=dict)
     #: what castgrid chose where a default gave way to what the config says (rank metric,
     #: dropped grid combinations); shown as notes and kept in the manifest
     notes: list[str] = field(default_factory=list)
@@ -118,8 +123,15 @@ def _reference(cfg: Config, specs: list[ForecasterSpec], season: int) -> tuple[s
                     "the first listed baseline)")
 
 
+#: Origins from outside the config (``windows.origins: from_file``): given a panel and its time
+#: axis, the sorted positions on that axis where forecasts were made, or None when nothing
+#: gives origins for that dataset.
+OriginSource = Callable[[Panel, TimeAxis], "np.ndarray | None"]
+
+
 def plan_dataset(
-    cfg: Config, panel: Panel, specs: list[ForecasterSpec], source: str
+    cfg: Config, panel: Panel, specs: list[ForecasterSpec], source: str,
+    file_origins: OriginSource | None = None,
 ) -> DatasetPlan:
     """The folds of every series of ``panel`` that has data for at least one origin."""
     season = panel.season
@@ -136,7 +148,8 @@ def plan_dataset(
     if scheme.align == "end":
         series, origin = _origins_from_series_ends(panel, first, scheme)
     else:
-        series, origin = _shared_origins(cfg, panel, axis, first, last, scheme, source)
+        series, origin = _shared_origins(cfg, panel, axis, first, last, scheme, source,
+                                         file_origins)
     if not len(series):
         first_skip = (_too_short(panel, axis, first, last, scheme, [0])[0]
                       if panel.n_series else "it has no series")
@@ -181,11 +194,13 @@ def _origins_from_series_ends(
 
 def _shared_origins(
     cfg: Config, panel: Panel, axis: TimeAxis, first: np.ndarray, last: np.ndarray,
-    scheme: Scheme, source: str,
+    scheme: Scheme, source: str, file_origins: OriginSource | None = None,
 ) -> tuple[np.ndarray, np.ndarray]:
     """Origins on the dataset's time axis, and for each series the ones it has data for."""
     w = cfg.windows
     where = f"{source}: windows"
+    if w.origins == FROM_FILE:
+        return _file_origins(panel, axis, first, last, scheme, where, file_origins)
     if w.origins is not None:
         origins = np.array(sorted(_position(axis, t, panel, f"{where}.origins") for t in w.origins),
                            dtype=np.int64)
@@ -200,12 +215,7 @@ def _shared_origins(
             )
     else:
         origins = anchored_origins(axis.span, scheme)
-    lo, hi = usable_origins(origins, first, last, scheme)
-    # which origins some series has data for (a difference array over origin indices)
-    cover = np.zeros(len(origins) + 1, dtype=np.int64)
-    np.add.at(cover, lo, 1)
-    np.add.at(cover, hi, -1)
-    used = np.cumsum(cover[:-1]) > 0
+    used = _used(origins, first, last, scheme)
     if w.origins is not None or w.first_origin is not None:
         if not used[0] or (w.origins is not None and not used.all()):
             bad = int(np.argmin(used))
@@ -220,9 +230,58 @@ def _shared_origins(
     origins = origins[used]
     if scheme.folds is not None:
         origins = origins[-scheme.folds :]
+    return _series_at(origins, first, last, scheme, panel.n_series)
+
+
+def _used(origins: np.ndarray, first: np.ndarray, last: np.ndarray, scheme: Scheme) -> np.ndarray:
+    """Which of the sorted ``origins`` some series has data for."""
+    lo, hi = usable_origins(origins, first, last, scheme)
+    # a difference array over origin indices
+    cover = np.zeros(len(origins) + 1, dtype=np.int64)
+    np.add.at(cover, lo, 1)
+    np.add.at(cover, hi, -1)
+    return np.cumsum(cover[:-1]) > 0
+
+
+def _file_origins(
+    panel: Panel, axis: TimeAxis, first: np.ndarray, last: np.ndarray, scheme: Scheme,
+    where: str, file_origins: OriginSource | None,
+) -> tuple[np.ndarray, np.ndarray]:
+    """``origins: from_file``: the origins a file's forecasts were made at that the window
+    scheme can use; the others are left out (the file's reader counts their rows)."""
+    given = None if file_origins is None else file_origins(panel, axis)
+    if given is None:
+        raise ConfigError(
+            f"{where}.origins: from_file takes the origins from the forecasts file of a "
+            f"candidate of kind recorded, and dataset {panel.name!r} has none (add one, or "
+            "list the origins)"
+        )
+    origins = np.unique(np.asarray(given, dtype=np.int64))
+    used = _used(origins, first, last, scheme)
+    if not used.any():
+        found = (f"its origins on the dataset's time axis run from "
+                 f"{axis.time_text(int(origins[0]))} to {axis.time_text(int(origins[-1]))}"
+                 if len(origins) else "none of its origins is a time of the dataset")
+        raise ConfigError(
+            f"{where}.origins: from_file: no origin of the forecasts file(s) fits the window "
+            f"scheme in dataset {panel.name!r}: none has train {scheme.train} observations up "
+            f"to it and gap {scheme.gap} + horizon {scheme.horizon} after it in any series "
+            f"({found}; the dataset's times run from {axis.time_text(0)} to "
+            f"{axis.time_text(axis.span - 1)})"
+        )
+    origins = origins[used]
+    if scheme.folds is not None:
+        origins = origins[-scheme.folds :]
+    return _series_at(origins, first, last, scheme, panel.n_series)
+
+
+def _series_at(
+    origins: np.ndarray, first: np.ndarray, last: np.ndarray, scheme: Scheme, n_series: int
+) -> tuple[np.ndarray, np.ndarray]:
+    """Every (series, origin) pair where the series has data for the origin, series-major."""
     lo, hi = usable_origins(origins, first, last, scheme)
     counts = hi - lo
-    series = np.repeat(np.arange(panel.n_series, dtype=np.int64), counts)
+    series = np.repeat(np.arange(n_series, dtype=np.int64), counts)
     within = np.arange(int(counts.sum()), dtype=np.int64) - np.repeat(np.cumsum(counts) - counts,
                                                                       counts)
     return series, origins[np.repeat(lo, counts) + within]
@@ -267,11 +326,14 @@ def _too_short(
 
 
 def build_plan(
-    config: Config | str | Path, specs: list[ForecasterSpec], config_path: Path | None = None
+    config: Config | str | Path, specs: list[ForecasterSpec], config_path: Path | None = None,
+    file_origins: OriginSource | None = None,
 ) -> Plan:
     """Load every dataset of ``config`` and lay out the folds of ``specs``; raises on bad input.
 
-    :func:`runner.pipeline.prepare` checks the forecasters and expands ``specs`` first.
+    :func:`runner.pipeline.prepare` checks the forecasters and expands ``specs`` first, and
+    passes ``file_origins`` (the origins of the recorded candidates' files) when the config
+    says ``windows.origins: from_file``.
     """
     if isinstance(config, (str, Path)):
         config_path = Path(config)
@@ -283,8 +345,13 @@ def build_plan(
     plans = []
     for i, ds in enumerate(cfg.datasets):
         panel = load_panel(ds, base, cfg.season, entry=f"{config_path}: datasets[{i}]")
+        attach_attributes(panel, ds, base)
         _check_season(cfg, i, panel, str(config_path))
-        plans.append(plan_dataset(cfg, panel, specs, str(config_path)))
+        plans.append(plan_dataset(cfg, panel, specs, str(config_path), file_origins))
+        unsegmented = [s for s in cfg.segments if s not in cfg.dataset_segments(ds)]
+        if unsegmented:
+            plans[-1].notes.append(f"not segmented by {', '.join(unsegmented)} (not among "
+                                   "its attributes)")
     return Plan(cfg, config_path, specs, plans)
 
 
