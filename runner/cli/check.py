@@ -57,7 +57,18 @@ def main(args: argparse.Namespace) -> int:
     cached = _count_cached(plan)
     cached_txt = "cache off" if cached is None else f"{cached} model tasks already cached"
     print(f"total: {plan.n_tasks} tasks ({cached_txt})")
+    print(_estimate_line(plan))
     return 0
+
+
+def _estimate_line(plan) -> str:
+    """``estimated output: ...; estimated peak memory ...`` (see runner.output.estimate)."""
+    from runner.output.estimate import estimate, human
+
+    est = estimate(plan)
+    files = ", ".join(f"{name} {human(size)}" for name, size in est.files.items())
+    return (f"estimated output: {human(est.total)} ({files}); estimated peak memory "
+            f"{human(est.peak_memory)}")
 
 
 def _segment_sizes(cfg, dp) -> list[str]:

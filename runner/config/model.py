@@ -278,9 +278,13 @@ class ExecutionConfig(_Strict):
 
 
 class OutputConfig(_Strict):
-    """Where results are written."""
+    """Where results are written, and which forecasts forecasts.parquet keeps: ``all``
+    forecasters, the ``compared`` ones (every candidate and the reference), or ``none`` (no
+    forecasts.parquet; scores, leaderboard and report are unchanged but for the forecasts
+    plot)."""
 
     dir: str | None = None
+    forecasts: Literal["all", "compared", "none"] = "all"
 
 
 class ModelConfig(_Strict):

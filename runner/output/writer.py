@@ -242,6 +242,24 @@ def time_array(ev: Evaluation, dataset: np.ndarray, position: np.ndarray) -> Any
     return pa.array(text.astype(str))
 
 
+#: Parquet compression of every table written: zstd packs the forecasts' repeated times,
+#: folds and steps tightly and the float64 values (kept as they are, for exactness) a little.
+COMPRESSION = "zstd"
+#: Columns written dictionary-encoded: the repeated text. Numbers are not: on float64 the
+#: dictionary rarely pays, and trying it costs most of the writing time.
+DICTIONARY_COLUMNS = ["dataset", "series", "forecaster"]
+
+
+def kept_forecasts(mode: str, spec_role: str, name: str, reference: str) -> bool:
+    """Whether ``output.forecasts: mode`` keeps a forecaster's forecasts: ``all``; the
+    ``compared`` ones, every candidate and the reference; ``none``."""
+    if mode == "all":
+        return True
+    if mode == "compared":
+        return spec_role == "candidate" or name == reference
+    return False
+
+
 def _forecasts_table(ev: Evaluation):
     import pyarrow as pa
 
@@ -268,6 +286,8 @@ def _forecasts_table(ev: Evaluation):
         # the origin is the time of the last training observation
         origin_index = np.repeat(dp.ends - 1, h)
         for r in dr.results:
+            if not kept_forecasts(cfg.output.forecasts, r.spec.role, r.spec.name, dp.reference):
+                continue
             n = dp.n_tasks
             cols["d"].append(np.full(n * h, d))
             cols["s"].append(np.repeat(dp.series + s_offset, h))
@@ -365,8 +385,11 @@ def write_results(
         from runner.output.segments import write_segment_files
 
         write_segment_files(ev, tmp, board)
-        pq.write_table(scores_table(ev, cols), tmp / "scores.parquet")
-        pq.write_table(_forecasts_table(ev), tmp / "forecasts.parquet")
+        pq.write_table(scores_table(ev, cols), tmp / "scores.parquet", compression=COMPRESSION,
+                       use_dictionary=DICTIONARY_COLUMNS)
+        if cfg.output.forecasts != "none":
+            pq.write_table(_forecasts_table(ev), tmp / "forecasts.parquet",
+                           compression=COMPRESSION, use_dictionary=DICTIONARY_COLUMNS)
         _csv(_horizon_frame(ev, cols), tmp / "horizon.csv")
         _csv(_failures_frame(ev), tmp / "failures.csv")
         selection = selection_frame(ev)

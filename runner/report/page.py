@@ -208,7 +208,10 @@ def _dataset_plots(view: DatasetView, results: Results) -> list[Plot]:
 
     p = Plot(f"{d}-forecasts.png", "forecasts against actuals", "")
     if not results.has_forecasts:
-        p.missing = f"{FORECASTS} is not in the results folder"
+        output = (results.manifest.get("config") or {}).get("output") or {}
+        p.missing = (f"the run kept no forecasts (output.forecasts: none), so {FORECASTS} was "
+                     "not written" if output.get("forecasts") == "none"
+                     else f"{FORECASTS} is not in the results folder")
     else:
         # only the rows drawn are read: the best candidate's best and worst series
         best = view.best()
