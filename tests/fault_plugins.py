@@ -2,6 +2,8 @@
 
 Each misbehaving plugin misbehaves only on a training slice of one chosen length
 (``when_length``), so a test can say exactly which tasks must fail and which must not.
+:class:`Gate` lets a test decide by events instead of by timing: it announces that it has
+started a fit and holds it until the test lets it go.
 """
 
 from __future__ import annotations
@@ -10,6 +12,8 @@ import builtins
 import ctypes
 import os
 import time
+import uuid
+from pathlib import Path
 
 import numpy as np
 
@@ -175,3 +179,35 @@ class FailsUnlessLength(Exits):
             raise ValueError(f"only fits {self.keep_length} values, got {len(y)}")
         self.last_ = float(y[-1])
         return self
+
+
+class Gate(LineFit):
+    """:class:`LineFit` that, on training slices of the lengths in ``when_lengths``, writes a
+    file ``blocked-<pid>-<length>-<id>`` into ``folder`` and then waits until ``folder/open``
+    exists.
+
+    A test that sees N ``blocked-*`` files knows N fits are held at that moment, whatever the
+    machine's speed or load; creating ``open`` releases them. ``limit`` seconds is only a guard
+    against a test that died without releasing its gate: the fit then fails.
+    """
+
+    def __init__(self, folder: str = ".", when_lengths: list[int] | None = None,
+                 limit: float = 600.0) -> None:
+        super().__init__()
+        self.folder = folder
+        self.when_lengths = when_lengths or []
+        self.limit = limit
+
+    def fit(self, y, *, season, covariates=None):
+        if len(y) in self.when_lengths:
+            folder = Path(self.folder)
+            gate = folder / "open"
+            if not gate.exists():
+                marker = folder / f"blocked-{os.getpid()}-{len(y)}-{uuid.uuid4().hex}"
+                marker.write_text("")
+                end = time.monotonic() + self.limit
+                while not gate.exists():
+                    if time.monotonic() > end:
+                        raise RuntimeError(f"the gate {gate} was never opened")
+                    time.sleep(0.01)
+        return super().fit(y, season=season, covariates=covariates)

@@ -19,6 +19,7 @@ from pandas.tseries.frequencies import to_offset
 from runner.config import DatasetConfig
 from runner.data import Panel, load_panel, season_for_frequency
 from runner.errors import ConfigError, DataError
+from runner.forecasters.gaps import fill_slice
 
 
 def _r_monthly(package: str, name: str) -> pd.DataFrame:
@@ -257,14 +258,18 @@ def test_gap_is_an_error_by_default(tmp_path: Path) -> None:
     assert 'series "a"' in msg and "2021-03-01 is missing" in msg
 
 
-def test_gap_interpolated_or_zeroed(tmp_path: Path) -> None:
+def test_gap_kept_for_interpolation_or_zeroed(tmp_path: Path) -> None:
     _write(tmp_path, "g.csv", GAPPY)
     panel = load_panel(_long("g.csv", frequency="MS", missing="interpolate"), tmp_path, 12)
-    # Linear interpolation halfway between 2 and 8.
-    assert panel.series_values(0).tolist() == [1, 2, 5, 8]
+    # The missing time is inserted and stays missing: each training slice fills it later
+    # from its own values (linear interpolation halfway between 2 and 8 gives 5).
+    v = panel.series_values(0)
+    assert v[[0, 1, 3]].tolist() == [1, 2, 8] and np.isnan(v[2])
+    assert fill_slice(v).tolist() == [1, 2, 5, 8]
     assert panel.format_time(np.arange(4)).tolist()[2] == "2021-03-01"
     assert panel.notes == [
-        'series "a": 1 missing value(s) interpolated (1 of them at missing times)'
+        'series "a": 1 missing value(s) kept as gaps (filled within each training slice) '
+        "(1 of them at missing times)"
     ]
     panel = load_panel(_long("g.csv", frequency="MS", missing="zero"), tmp_path, 12)
     assert panel.series_values(0).tolist() == [1, 2, 0, 8] and panel.offsets.tolist() == [0, 4, 5]
@@ -274,7 +279,8 @@ def test_missing_value_policies(tmp_path: Path) -> None:
     _write(tmp_path, "n.csv", "id,month,value\na,2021-01-01,1\na,2021-02-01,\na,2021-03-01,4\n")
     msg = _error(_long("n.csv"), tmp_path)
     assert 'series "a"' in msg and '"value"' in msg and "2021-02-01" in msg and "row 2" in msg
-    assert load_panel(_long("n.csv", missing="interpolate"), tmp_path, 12).values[1] == 2.5
+    kept = load_panel(_long("n.csv", missing="interpolate"), tmp_path, 12).values
+    assert np.isnan(kept[1]) and fill_slice(kept)[1] == 2.5
     assert load_panel(_long("n.csv", missing="zero"), tmp_path, 12).values[1] == 0.0
 
 

@@ -242,3 +242,80 @@ def test_diff_against_a_git_revision(tmp_path: Path, monkeypatch: pytest.MonkeyP
     monkeypatch.setenv("GIT_CEILING_DIRECTORIES", str(tmp_path))
     assert main(["diff", "HEAD:results/demo", str(repo / "results" / "demo")]) == 2
     assert "not inside a git repository" in capsys.readouterr().err
+
+
+PLATFORM = {"machine": "x86_64", "system": "Linux", "cpu": "Example CPU",
+            "blas": [{"library": "openblas", "version": "0.3.31", "kernel": "SkylakeX",
+                      "file": "libopenblas.so"}]}
+
+
+def _rewrite(folder: Path, edit_csv=None, platform=None) -> None:
+    if edit_csv is not None:
+        board = folder / "leaderboard.csv"
+        text = board.read_text()
+        new = edit_csv(text)
+        assert new != text
+        board.write_text(new)
+    if platform is not None:
+        man = json.loads((folder / "manifest.json").read_text())
+        man["platform"] = platform
+        (folder / "manifest.json").write_text(json.dumps(man))
+
+
+def test_a_platform_change_is_named_and_noise_is_within_tolerance(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str]
+) -> None:
+    a = write_folder(tmp_path / "a", OLD_SHOPS, "aaaa1111", ["arima"])
+    b = tmp_path / "b"
+    shutil.copytree(a, b)
+    other = json.loads(json.dumps(PLATFORM))
+    other["blas"][0]["kernel"] = "Haswell"
+    _rewrite(a, platform=PLATFORM)
+    # arima's mase 0.8 -> 0.8004 (+0.05%) and mae 8 -> 7.996 (-0.05%): within 0.1%
+    _rewrite(b, lambda t: t.replace("shops,1,arima,arima,candidate,4,5,20,0,8,1.5,0.8,",
+                                    "shops,1,arima,arima,candidate,4,5,20,0,7.996,1.5,0.8004,"),
+             platform=other)
+    d = compare(Results.load(str(a)), Results.load(str(b)))
+    assert d.platform_changes == [
+        "BLAS openblas 0.3.31 SkylakeX -> openblas 0.3.31 Haswell"]
+    assert not d.changed() and d.within_tolerance() == 2
+    assert d.worse_than(0) == []
+    assert main(["diff", str(a), str(b), "--fail-if-worse", "0"]) == 0
+    out = capsys.readouterr().out
+    assert "platform: changed (BLAS openblas 0.3.31 SkylakeX -> openblas 0.3.31 Haswell)" in out
+    arima = next(line for line in out.splitlines() if " arima " in line and "0.8004" in line)
+    assert arima.rstrip().endswith("within tolerance") and "+0.05%" in arima
+    mae = next(line for line in out.splitlines() if "arima" in line and " mae " in line)
+    assert mae.rstrip().endswith("within tolerance")
+    assert out.rstrip().splitlines()[-1] == (
+        "no change beyond numerical tolerance: same config, data and forecasters; "
+        "2 score(s) differ within tolerance (platform changed)")
+
+
+def test_a_change_beyond_tolerance_is_real_on_any_platform(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str]
+) -> None:
+    a = write_folder(tmp_path / "a", OLD_SHOPS, "aaaa1111", ["arima"])
+    b = tmp_path / "b"
+    shutil.copytree(a, b)
+    # +0.15%: past the 0.1% tolerance, so it is worse and gates at 0.1%
+    _rewrite(b, lambda t: t.replace("shops,1,arima,arima,candidate,4,5,20,0,8,1.5,0.8,",
+                                    "shops,1,arima,arima,candidate,4,5,20,0,8,1.5,0.8012,"))
+    d = compare(Results.load(str(a)), Results.load(str(b)))
+    assert d.changed() and d.within_tolerance() == 0
+    assert [name for _, name, _ in d.worse_than(0.1)] == ["arima"]
+    assert main(["diff", str(a), str(b), "--fail-if-worse", "0.1"]) == 4
+    out = capsys.readouterr().out
+    assert "platform: not recorded" in out
+    assert out.rstrip().splitlines()[-3] == "changed: 1 mase score(s) changed"
+
+
+def test_noise_tolerance_of_each_metric() -> None:
+    from runner.scoring.metrics import NOISE_RELATIVE, noise_tolerance
+
+    assert noise_tolerance("mase", 0.8, 120, 6, 4) == pytest.approx(0.8 * NOISE_RELATIVE)
+    assert noise_tolerance("me", -2.0, 120, 6, 4) == pytest.approx(2.0 * NOISE_RELATIVE)
+    # coverage: one actual crossing a bound in each of 4 folds of 30 tasks x 6 steps
+    # moves the mean of the fold means by 4 x (100 / 180) / 4 points
+    assert noise_tolerance("coverage_80", 80.0, 120, 6, 4) == pytest.approx(100 * 4 / 720)
+    assert noise_tolerance("mase", float("nan"), 120, 6, 4) == 0.0

@@ -34,7 +34,7 @@ def scheduler(tmp_path_factory):
         stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL,
     )]
     try:
-        deadline = time.monotonic() + 60
+        deadline = time.monotonic() + 300  # a guard against a hang, not a measure
         while not info.exists() or not info.read_text().strip():
             assert time.monotonic() < deadline, "the dask scheduler did not start"
             time.sleep(0.1)
@@ -45,7 +45,7 @@ def scheduler(tmp_path_factory):
             stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL,
         ))
         with Client(address, timeout="30s") as client:
-            client.wait_for_workers(2, timeout=60)
+            client.wait_for_workers(2, timeout=300)
         yield address
     finally:
         if len(procs) == 2:
@@ -73,9 +73,10 @@ def test_dask_cluster_gives_the_local_outcomes_and_isolates_faults(scheduler):
     keep = [k for k, t in enumerate(tasks) if t.forecaster < 2]
     # (in process, Stubborn would defeat the timer: it swallows the interruption)
     local = execute([tasks[k] for k in keep], shared, jobs=1)
-    t0 = time.monotonic()
-    remote = execute(tasks, shared, engine="dask", address=scheduler, fit_timeout=1.0)
-    assert time.monotonic() - t0 < 60
+    # Decided by outcomes, not by elapsed time: Stubborn holds its fit for 600 s, so only the
+    # timer can give it reason "timeout"; the good fits (a line, theta on 48 quarters) stay far
+    # inside 5 s however busy the machine is.
+    remote = execute(tasks, shared, engine="dask", address=scheduler, fit_timeout=5.0)
     expected = {(2, 48): "timeout", (3, 52): "crash"}
     for t, o in zip(tasks, remote):
         assert o.reason == expected.get((t.forecaster, t.end - t.start)), (t, o.message)

@@ -1,9 +1,15 @@
 """``castgrid diff OLD NEW``: what changed between two evaluations, and whether it is the model.
 
 For every dataset it lists forecasters added and gone, rank changes, each metric's change
-(absolute and relative), and whether the config, the data or the library versions changed, so
-a better score can be told apart from different data. ``--fail-if-worse PCT`` makes the command
-a gate: exit code 4 when a candidate's rank metric got worse by more than PCT percent.
+(absolute and relative), and whether the config, the data, the library versions or the platform
+(CPU, BLAS library and kernel) changed, so a better score can be told apart from different data
+or a different machine. ``--fail-if-worse PCT`` makes the command a gate: exit code 4 when a
+candidate's rank metric got worse by more than PCT percent.
+
+A change of a score within its numerical tolerance
+(:func:`runner.scoring.metrics.noise_tolerance`: 0.1% of the value, one interval hit per fold
+for coverage) is shown as "within tolerance": it is what another CPU or BLAS kernel does to the
+same computation. It is not a change in the closing line and never trips ``--fail-if-worse``.
 
 OLD and NEW are results folders or ``REV:path`` read from git (see :mod:`runner.output.reader`).
 """
@@ -177,6 +183,22 @@ class ForecasterChange:
     in_new: bool = True
     failed: tuple[float, float] = (0.0, 0.0)  # failed tasks, old and new
     values: dict[str, tuple[float, float]] = field(default_factory=dict)  # metric -> (old, new)
+    tolerance: dict[str, float] = field(default_factory=dict)  # metric -> largest noise change
+
+    def differs(self, metric: str) -> bool:
+        """Whether ``metric`` differs at all between old and new."""
+        return not _same(*self.values.get(metric, (math.nan, math.nan)))
+
+    def within_tolerance(self, metric: str) -> bool:
+        """Whether ``metric`` differs, but by no more than its numerical tolerance."""
+        old, new = self.values.get(metric, (math.nan, math.nan))
+        if not self.differs(metric) or not (math.isfinite(old) and math.isfinite(new)):
+            return False
+        return abs(new - old) <= self.tolerance.get(metric, 0.0)
+
+    def really_differs(self, metric: str) -> bool:
+        """Whether ``metric`` differs by more than its numerical tolerance."""
+        return self.differs(metric) and not self.within_tolerance(metric)
 
 
 @dataclass
@@ -216,8 +238,13 @@ class DatasetDiff:
     #: set when only one folder has segments, or neither has this dataset's
     segments_note: str = ""
 
-    def changed(self) -> bool:
-        """Whether anything at all differs for this dataset."""
+    def changed(self, rank_by: str | None = None) -> bool:
+        """Whether anything differs for this dataset beyond numerical tolerance.
+
+        Ranks follow from the rank metric (``rank_by``): when every score moved within its
+        tolerance, forecasters within noise of each other may swap places on another machine,
+        and that is not a change. Without ``rank_by`` every rank change counts.
+        """
         if self.status != "both" or self.data_changed or self.added or self.gone:
             return True
         if any(changed for _, changed, _ in self.files):
@@ -227,12 +254,18 @@ class DatasetDiff:
         if self.reference[0] != self.reference[1]:
             return True
         for f in self.forecasters:
-            if (f.old_rank != f.new_rank or not (f.in_old and f.in_new)
-                    or not _same(*f.failed)):
+            if not (f.in_old and f.in_new) or not _same(*f.failed):
                 return True
-            if any(not _same(o, n) for o, n in f.values.values()):
+            if f.old_rank != f.new_rank and rank_by is None:
+                return True
+            if any(f.really_differs(m) for m in f.values):
                 return True
         return False
+
+    def within_tolerance(self) -> int:
+        """How many (forecaster, metric) scores differ within their tolerance."""
+        return sum(f.within_tolerance(m) for f in self.forecasters if f.in_old and f.in_new
+                   for m in f.values)
 
 
 @dataclass
@@ -245,6 +278,7 @@ class Diff:
     config_changes: list[str]
     version_changes: list[str]
     datasets: list[DatasetDiff]
+    platform_changes: list[str] = field(default_factory=list)
 
     @property
     def config_changed(self) -> bool:
@@ -252,9 +286,16 @@ class Diff:
         return self.old.manifest["config_hash"] != self.new.manifest["config_hash"]
 
     def changed(self) -> bool:
-        """Whether anything differs between the two folders."""
+        """Whether anything differs between the two folders beyond numerical tolerance.
+
+        A change of platform alone is not a change of results: it explains one.
+        """
         return (self.config_changed or bool(self.version_changes)
-                or any(d.changed() for d in self.datasets))
+                or any(d.changed(self.rank_by) for d in self.datasets))
+
+    def within_tolerance(self) -> int:
+        """How many scores differ, all within their numerical tolerance."""
+        return sum(d.within_tolerance() for d in self.datasets)
 
     def worse_than(self, pct: float) -> list[tuple[str, str, float]]:
         """(dataset, candidate, percent worse) for candidates whose rank metric got worse."""
@@ -266,6 +307,8 @@ class Diff:
                 old, new = f.values[self.rank_by]
                 if not (f.in_old and f.in_new) or not math.isfinite(old):
                     continue
+                if f.within_tolerance(self.rank_by):
+                    continue  # numerical noise is never "worse"
                 w = worsening(self.rank_by, old, new)
                 if w > pct:
                     out.append((d.name, f.name, w))
@@ -324,6 +367,43 @@ def _origins_text(origins: Any) -> str:
     return f"{count} ({first} to {last})" if count != 1 else f"1 ({first})"
 
 
+def _platform_text(blas: list[dict[str, Any]]) -> str:
+    return ", ".join(f"{b.get('library', '?')} {b.get('version', '?')} {b.get('kernel', '?')}"
+                     for b in blas) or "none"
+
+
+def platform_changes(old: dict[str, Any], new: dict[str, Any]) -> list[str]:
+    """What differs between the platforms two manifests recorded (``manifest["platform"]``).
+
+    A manifest written before castgrid recorded the platform gives ``["not recorded in ..."]``.
+    """
+    po, pn = old.get("platform"), new.get("platform")
+    if po is None or pn is None:
+        if po is None and pn is None:
+            return []
+        return [f"not recorded in the {'old' if po is None else 'new'} results"]
+    out = []
+    for key in ("machine", "system", "cpu"):
+        if po.get(key) != pn.get(key):
+            out.append(f"{key} {po.get(key, '-')} -> {pn.get(key, '-')}")
+    bo, bn = _platform_text(po.get("blas") or []), _platform_text(pn.get("blas") or [])
+    if bo != bn:
+        out.append(f"BLAS {bo} -> {bn}")
+    return out
+
+
+def _tolerances(row: dict[str, Any] | None, metrics: list[str], horizon: int
+                ) -> dict[str, float]:
+    from runner.scoring.metrics import noise_tolerance
+
+    if row is None:
+        return {}
+    tasks = int(row["tasks"]) if "tasks" in row and math.isfinite(float(row["tasks"])) else 0
+    folds = int(row["folds"]) if "folds" in row and math.isfinite(float(row["folds"])) else 1
+    return {m: noise_tolerance(m, float(row.get(f"{m}_mean", math.nan)), tasks, horizon, folds)
+            for m in metrics}
+
+
 def compare(old: Results, new: Results) -> Diff:
     """Compare two loaded results folders."""
     rank_by = new.manifest["rank_by"]
@@ -338,6 +418,7 @@ def compare(old: Results, new: Results) -> Diff:
         for k in dict.fromkeys([*new_v, *old_v]) if old_v.get(k) != new_v.get(k)
     ]
     old_ref, new_ref = old.manifest.get("reference") or {}, new.manifest.get("reference") or {}
+    horizon = int((old.manifest.get("config") or {}).get("horizon") or 0)
 
     datasets = []
     for name in dict.fromkeys(new.datasets() + old.datasets()):
@@ -361,6 +442,7 @@ def compare(old: Results, new: Results) -> Diff:
                 None if n is None else _rank(n["rank"]),
                 in_old=o is not None, in_new=n is not None,
                 failed=(_failed(o), _failed(n)),
+                tolerance=_tolerances(o, metrics, horizon),
             )
             for m in metrics:
                 col = f"{m}_mean"
@@ -370,7 +452,8 @@ def compare(old: Results, new: Results) -> Diff:
             dd.forecasters.append(fc)
         _compare_segments(dd, old, new, rank_by)
         datasets.append(dd)
-    return Diff(old, new, rank_by, config_changes, version_changes, datasets)
+    return Diff(old, new, rank_by, config_changes, version_changes, datasets,
+                platform_changes(old.manifest, new.manifest))
 
 
 def _compare_segments(dd: DatasetDiff, old: Results, new: Results, rank_by: str) -> None:
@@ -430,13 +513,15 @@ def _failed_text(old: float, new: float) -> str:
     return a if a == b else f"{a} -> {b}"
 
 
-def _verdict(metric: str, old: float, new: float) -> str:
+def _verdict(metric: str, old: float, new: float, noise: bool = False) -> str:
     if math.isnan(old) and math.isnan(new):
         return ""
     if math.isnan(old):
         return "new"
     if _same(old, new):
         return "same"
+    if noise:
+        return "within tolerance"
     w = worsening(metric, old, new)
     return "worse" if w > 0 else "better" if w < 0 else "same"
 
@@ -457,6 +542,14 @@ def _header(d: Diff, markdown: bool) -> list[str]:
         out.append("config: unchanged")
     out.append("versions: " + ("changed (" + ", ".join(d.version_changes) + ")"
                                if d.version_changes else "unchanged"))
+    if d.platform_changes:
+        out.append("platform: changed (" + "; ".join(d.platform_changes) + "): scores may "
+                   "differ within the numerical tolerance")
+    elif "platform" in nm:
+        out.append(f"platform: unchanged ({nm['platform'].get('machine', '?')}, BLAS "
+                   f"{_platform_text(nm['platform'].get('blas') or [])})")
+    else:
+        out.append("platform: not recorded")
     if om["rank_by"] != nm["rank_by"]:
         out.append(f"rank metric: {nm['rank_by']} (was {om['rank_by']}; ranks are not "
                    "comparable)")
@@ -506,7 +599,7 @@ def format_diff(d: Diff, markdown: bool = False, fail_pct: float | None = None) 
         for f in ds.forecasters:
             old, new = f.values.get(m, (math.nan, math.nan))
             verdict = "gone" if not f.in_new else "added" if not f.in_old else _verdict(
-                m, old, new)
+                m, old, new, f.within_tolerance(m))
             if (fail_pct is not None and f.role == "candidate" and verdict == "worse"
                     and worsening(m, old, new) > fail_pct):
                 verdict = f"worse > {fail_pct:g}%"
@@ -524,14 +617,15 @@ def format_diff(d: Diff, markdown: bool = False, fail_pct: float | None = None) 
                     continue
                 change = new - old if math.isfinite(old) and math.isfinite(new) else math.nan
                 other.append([f.name, metric, _num(old), _num(new), _num(change),
-                              percent_text(relative_change(old, new))])
+                              percent_text(relative_change(old, new)),
+                              "within tolerance" if f.within_tolerance(metric) else ""])
         if other:
             lines.append("")
             lines.append("other metrics that changed:")
             if markdown:
                 lines.append("")
             lines.append(render_table(["forecaster", "metric", "old", "new", "change",
-                                       "change %"], other, markdown,
+                                       "change %", ""], other, markdown,
                                       indent="" if markdown else "  "))
         elif ds.status == "both" and ds.forecasters:
             lines.append(f"{bullet}other metrics: unchanged")
@@ -576,9 +670,14 @@ def _segment_lines(ds: DatasetDiff, m: str, markdown: bool, bullet: str) -> list
 
 def _summary(d: Diff) -> str:
     """One closing line: nothing changed, or what kinds of change there were."""
+    noise = d.within_tolerance()
     if not d.changed():
-        files = " forecasts files," if any(ds.files for ds in d.datasets) else ""
-        return f"no change: same config, data,{files} forecasters and scores"
+        if not noise:
+            files = " forecasts files," if any(ds.files for ds in d.datasets) else ""
+            return f"no change: same config, data,{files} forecasters and scores"
+        why = " (platform changed)" if d.platform_changes else ""
+        return (f"no change beyond numerical tolerance: same config, data and forecasters; "
+                f"{noise} score(s) differ within tolerance{why}")
     parts = []
     if d.config_changed:
         parts.append("config changed")
@@ -599,9 +698,13 @@ def _summary(d: Diff) -> str:
     if added or gone:
         parts.append(f"{added} forecaster(s) added, {gone} gone")
     moved = sum(1 for ds in d.datasets for f in ds.forecasters
-                if f.in_old and f.in_new and not _same(*f.values.get(d.rank_by, (0.0, 0.0))))
+                if f.in_old and f.in_new and f.really_differs(d.rank_by))
     parts.append(f"{moved} {d.rank_by} score(s) changed")
     segments = sum(1 for ds in d.datasets for s in ds.segments if s.changed())
     if segments:
         parts.append(f"{segments} segment row(s) changed")
+    if noise:
+        parts.append(f"{noise} score(s) within tolerance")
+    if d.platform_changes:
+        parts.append("platform changed")
     return "changed: " + "; ".join(parts)

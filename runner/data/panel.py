@@ -10,7 +10,9 @@ is 1.2M rows, and a per-series loop would dominate the whole run. The stages, in
 3. sort once by (series, time), reject duplicate times;
 4. place every time on a step axis (a frequency grid for dates, the common difference for
    integers), check that timestamps fit it and that all series share it;
-5. find gaps (missing times) and missing values and apply the ``missing`` policy;
+5. find gaps (missing times) and missing values and apply the ``missing`` policy (``zero``
+   fills them with 0 here; ``interpolate`` inserts the missing times and keeps every missing
+   value as NaN, filled later within each training slice from that slice's own values);
 6. resolve the season length and fingerprint the content.
 
 Every problem raises :class:`~runner.errors.DataError` with one line that names the file (as
@@ -87,7 +89,9 @@ class Panel:
 
     Series ``i`` is ``values[offsets[i]:offsets[i+1]]``, in time order; ``times`` and the rows
     of ``covariates`` line up with ``values``. Series are ordered by their key (string order
-    of the key tuple), so the same data always gives the same panel.
+    of the key tuple), so the same data always gives the same panel. With ``missing:
+    interpolate``, ``values`` is NaN at every missing value (never at a series' first or last
+    position): each training slice is filled from its own values when it is used.
     """
 
     name: str
@@ -927,8 +931,11 @@ def _apply_missing_policy(rows: _Rows, axis: _Axis, ds: DatasetConfig, src: _Sou
         rows.v = np.where(nan, 0.0, rows.v)
         verb = "set to 0"
     else:
-        _interpolate(rows, nan, src)
-        verb = "interpolated"
+        # Kept as NaN: each forecaster fills its own training slice from that slice alone
+        # (runner.forecasters.gaps), so no value from after a forecast origin reaches it.
+        _check_interpolable(rows, nan, src)
+        rows.v = np.where(nan, np.nan, rows.v)  # one NaN bit pattern, for the fingerprint
+        verb = "kept as gaps (filled within each training slice)"
     _fill_notes(rows, nan, inserted, verb, src)
     return rows
 
@@ -956,14 +963,12 @@ def _insert_gaps(rows: _Rows, axis: _Axis) -> _Rows:
                  offsets=offsets)  # fmt: skip
 
 
-def _interpolate(rows: _Rows, nan: np.ndarray, src: _Source) -> None:
-    """Linear interpolation inside each series; a missing first or last value is an error.
+def _check_interpolable(rows: _Rows, nan: np.ndarray, src: _Source) -> None:
+    """``interpolate`` never guesses beyond the data: a missing first or last value is an error.
 
-    Every step is equally long on the axis, so interpolating over the flat index is linear in
-    time, and an interior missing value always has known neighbours in its own series.
+    Interior gaps stay NaN in the panel; they are filled per training slice later.
     """
     starts, ends = rows.offsets[:-1], rows.offsets[1:] - 1
-    known = ~nan
     lead, trail = starts[nan[starts]], ends[nan[ends]]
     if len(lead) or len(trail):
         j = int(min(lead.min(initial=len(nan)), trail.min(initial=len(nan))))
@@ -973,10 +978,6 @@ def _interpolate(rows: _Rows, nan: np.ndarray, src: _Source) -> None:
             f"{rows.time_text(rows.t[j])}, row {rows.row[j]}) is missing and cannot be "
             f"interpolated; drop the row or set missing: zero"
         )
-    x = np.arange(len(rows.v), dtype=np.float64)
-    v = rows.v.copy()
-    v[nan] = np.interp(x[nan], x[known], rows.v[known])
-    rows.v = v
 
 
 def _fill_notes(

@@ -2,12 +2,14 @@
 
 A task's key (:mod:`runner.execution.cache_keys`) is a SHA-256 over the forecaster's identity
 (kind, entry, canonical parameters, implementation version:
-:func:`runner.forecasters.registry.identity`), the training values it saw (raw float64 bytes), the
-covariates it saw (training and test block, only for forecasters that are given covariates), the
-horizon, the season, the gap between training end and test block, and the interval levels. The
-position of a slice in its series is not part of the key, so appended observations leave the keys
-of every earlier fold unchanged, and a revised value changes exactly the keys of the folds whose
-training slice contains it.
+:func:`runner.forecasters.registry.identity`), the training values it saw (raw float64 bytes, after
+its gaps were filled from the slice alone:
+:func:`runner.execution.tasks.training_values`), the covariates it saw (training and test
+block, only for forecasters that are given covariates), the horizon, the season, the gap
+between training end and test block, and the interval levels. The position of a slice in its
+series is not part of the key, so appended observations leave the keys of every earlier fold
+unchanged, and a revised value changes exactly the keys of the folds whose training slice
+contains it.
 
 The store is ``<cache folder>/forecasts.sqlite`` in WAL mode. Only the parent process writes,
 in small transactions as tasks finish, so a killed run loses at most the tasks in flight. Two

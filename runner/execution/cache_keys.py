@@ -56,6 +56,7 @@ def task_keys(tasks: Sequence[Task], shared: SharedData) -> list[bytes]:
     import numpy as np
 
     from runner.execution.panel_tasks import PanelTask
+    from runner.execution.tasks import training_values
     from runner.forecasters.registry import accepts_covariates, identity
 
     idents: dict[int, tuple[bytes, bool]] = {}
@@ -77,8 +78,8 @@ def task_keys(tasks: Sequence[Task], shared: SharedData) -> list[bytes]:
             continue
         vk = (task.dataset, task.start, task.end)
         if vk not in value_digests:
-            y = np.ascontiguousarray(shared.values[task.dataset][task.start : task.end],
-                                     dtype=np.float64)
+            # what the forecaster sees: the slice with its gaps filled from the slice alone
+            y = np.ascontiguousarray(training_values(task, shared), dtype=np.float64)
             value_digests[vk] = _digest(memoryview(y).cast("B"))
         cov_digest = b"not-given"
         cov = shared.covariates[task.dataset]
@@ -113,13 +114,14 @@ def _panel_key(
     where = (task.dataset, task.fold, uses_cov)
     if where not in digests:
         cov = shared.covariates[task.dataset] if uses_cov else None
-        history, series, future = panel_inputs(
+        history, series, future, requested = panel_inputs(
             layout, shared.values[task.dataset], cov, task.fold, steps
         )
         parts: list[bytes] = []
         for f in dataclasses.fields(history):
             parts += [f.name.encode(), _any_bytes(getattr(history, f.name))]
-        parts += [b"series", _any_bytes(series), b"future", _any_bytes(future)]
+        parts += [b"series", _any_bytes(series), b"future", _any_bytes(future),
+                  b"requested", _any_bytes(requested)]
         digests[where] = _digest(*parts)
     numbers = struct.pack("<qq", shared.horizon, steps)
     levels = np.asarray(shared.levels, dtype=np.float64).tobytes()

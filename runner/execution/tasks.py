@@ -18,6 +18,7 @@ import numpy as np
 
 from runner.config import ForecasterSpec
 from runner.forecasters.contract import as_forecast
+from runner.forecasters.gaps import fill_slice, observed_count
 
 if TYPE_CHECKING:
     from runner.execution.panel_tasks import PanelLayout, PanelTask
@@ -105,16 +106,26 @@ def run_task(task: Task, shared: SharedData) -> TaskOutcome:
     return run_panel_task(task, shared)
 
 
+def training_values(task: ModelTask, shared: SharedData) -> np.ndarray:
+    """The training values ``task``'s forecaster sees: a fresh copy of its slice, with missing
+    values filled from the slice alone (:func:`runner.forecasters.gaps.fill_slice`).
+
+    The cache key hashes exactly these values, so a cached forecast is one made from what the
+    forecaster would see now.
+    """
+    return fill_slice(shared.values[task.dataset][task.start : task.end])
+
+
 def task_slices(
     task: ModelTask, shared: SharedData, with_covariates: bool
 ) -> tuple[np.ndarray, np.ndarray | None, np.ndarray | None]:
-    """Training values, training covariates and future covariates of ``task`` (views).
+    """Training values (filled, a copy), training and future covariates (views) of ``task``.
 
     The future covariates run from the end of training to the end of the test block: with a
     ``gap`` the forecaster forecasts through the gap, and only the last ``horizon`` steps are
     scored.
     """
-    y = shared.values[task.dataset][task.start : task.end]
+    y = training_values(task, shared)
     cov = shared.covariates[task.dataset] if with_covariates else None
     if cov is None:
         return y, None, None
@@ -136,9 +147,14 @@ def run_model_task(task: ModelTask, shared: SharedData) -> TaskOutcome:
     try:
         model = build(spec)
         uses_cov = accepts_covariates(spec)
+        # y is a copy, so a forecaster that writes into its input cannot damage the shared data
         y, cov_train, cov_test = task_slices(task, shared, uses_cov)
-        # A copy, so that a forecaster that writes into its input cannot damage the shared data.
-        y = np.array(y, dtype=float)
+        if len(y) and observed_count(y) == 0:
+            return failed(
+                task.index, "too-short",
+                "the training slice has no observed value (every one is missing)",
+                time.perf_counter() - t0,
+            )
         fit_kwargs: dict[str, Any] = {"season": task.season}
         predict_kwargs: dict[str, Any] = {"levels": shared.levels}
         if cov_train is not None:

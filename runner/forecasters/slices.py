@@ -6,6 +6,10 @@ last few values for hundreds of thousands of slices, so they are computed on pad
 ``(tasks, longest slice)`` matrices in chunks small enough to keep memory bounded, instead of
 one Python call per task. Sums are taken per slice, not as differences of a running cumulative
 sum, so long series with large values lose no precision.
+
+Missing values (NaN, kept by ``missing: interpolate``) are filled inside each slice from that
+slice's own values (:mod:`runner.forecasters.gaps`) before any statistic is taken, exactly as a
+per-series model's training slice is filled.
 """
 
 from __future__ import annotations
@@ -14,6 +18,8 @@ from collections.abc import Iterator
 from dataclasses import dataclass
 
 import numpy as np
+
+from runner.forecasters.gaps import SliceFill
 
 #: Largest padded matrix built at once (elements); 4M float64 = 32 MiB.
 CHUNK_ELEMENTS = 1 << 22
@@ -30,18 +36,22 @@ def chunks(starts: np.ndarray, ends: np.ndarray) -> Iterator[slice]:
         yield slice(lo, min(n, lo + rows))
 
 
-def padded(values: np.ndarray, starts: np.ndarray, ends: np.ndarray) -> np.ndarray:
+def padded(
+    values: np.ndarray | SliceFill, starts: np.ndarray, ends: np.ndarray
+) -> np.ndarray:
     """Training slices right-aligned in a matrix: row i ends with ``values[ends[i]-1]``.
 
     Right alignment keeps "the last k values" at fixed columns; cells before a slice's start
-    are NaN.
+    are NaN. Gaps inside a slice are filled from that slice alone (pass a :class:`SliceFill`
+    to reuse one built for the same values).
     """
+    fill = values if isinstance(values, SliceFill) else SliceFill(values)
     lengths = ends - starts
     width = int(lengths.max()) if len(lengths) else 0
     cols = np.arange(-width, 0, dtype=np.int64)
     idx = ends[:, None] + cols[None, :]
     valid = idx >= starts[:, None]
-    out = values[np.where(valid, idx, 0)]
+    out = fill.take(np.where(valid, idx, starts[:, None]), starts[:, None], ends[:, None])
     out[~valid] = np.nan
     return out
 
@@ -55,6 +65,7 @@ class SliceSummary:
     """
 
     length: np.ndarray
+    observed: np.ndarray  # values of the slice that are not missing (before filling)
     first: np.ndarray
     last: np.ndarray
     mean: np.ndarray
@@ -66,15 +77,21 @@ class SliceSummary:
 
 
 def summarise(
-    values: np.ndarray, starts: np.ndarray, ends: np.ndarray, season: int
+    values: np.ndarray | SliceFill, starts: np.ndarray, ends: np.ndarray, season: int
 ) -> SliceSummary:
-    """Compute :class:`SliceSummary` for every slice ``values[starts[i]:ends[i]]``."""
+    """Compute :class:`SliceSummary` for every slice ``values[starts[i]:ends[i]]``.
+
+    Statistics are of the filled slices (see :mod:`runner.forecasters.gaps`).
+    """
+    fill = values if isinstance(values, SliceFill) else SliceFill(values)
     n = len(starts)
     fields = {name: np.full(n, np.nan) for name in SliceSummary.__dataclass_fields__}
     fields["length"] = (ends - starts).astype(float)
+    known = np.concatenate([[0], np.cumsum(~np.isnan(fill.values), dtype=np.int64)])
+    fields["observed"] = (known[ends] - known[starts]).astype(float)
     m = max(int(season), 1)
     for part in chunks(starts, ends):
-        mat = padded(values, starts[part], ends[part])
+        mat = padded(fill, starts[part], ends[part])
         length = fields["length"][part]
         with np.errstate(invalid="ignore", divide="ignore"):
             mean = np.nansum(mat, axis=1) / length

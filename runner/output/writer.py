@@ -70,8 +70,57 @@ def _origins_summary(dp: DatasetPlan) -> dict[str, Any]:
     return {"count": int(len(labels)), "first": str(labels[0]), "last": str(labels[-1])}
 
 
+def _cpu_model() -> str:
+    """The CPU's model name (Linux /proc/cpuinfo), else what the platform module knows."""
+    try:
+        with open("/proc/cpuinfo", encoding="utf-8", errors="replace") as fh:
+            for line in fh:
+                key, _, value = line.partition(":")
+                if key.strip() in ("model name", "Model", "cpu model"):
+                    return value.strip()
+    except OSError:
+        pass
+    return platform.processor() or "unknown"
+
+
+def platform_info() -> dict[str, Any]:
+    """Where the numbers were computed: CPU architecture and model, and every BLAS library
+    loaded with the kernel it chose for this CPU.
+
+    The same library versions can still give different last bits on another CPU: OpenBLAS
+    picks a kernel per CPU (``OPENBLAS_CORETYPE`` overrides it), and iterative optimisers can
+    carry such bits into a different optimum. ``castgrid diff`` names a change of platform so
+    that such differences are read for what they are. Recorded in this (the parent) process;
+    local worker processes run on the same machine with the same environment, so they load the
+    same kernels (remote dask workers are not recorded).
+    """
+    import scipy.linalg  # noqa: F401  scipy's BLAS (statsmodels' fits use it) is loaded now
+    from threadpoolctl import threadpool_info
+
+    blas = []
+    for lib in threadpool_info():
+        if lib.get("user_api") != "blas":
+            continue
+        entry = {
+            "library": str(lib.get("internal_api", "unknown")),
+            "version": str(lib.get("version") or "unknown"),
+            "kernel": str(lib.get("architecture") or lib.get("corename") or "unknown"),
+            "file": os.path.basename(str(lib.get("filepath", ""))),
+        }
+        if entry not in blas:
+            blas.append(entry)
+    blas.sort(key=lambda e: (e["library"], e["file"]))
+    return {
+        "machine": platform.machine(),
+        "system": platform.system(),
+        "cpu": _cpu_model(),
+        "blas": blas,
+    }
+
+
 def manifest(ev: Evaluation) -> dict[str, Any]:
-    """Canonical config and hash, data fingerprints, versions and task counts (no timestamps)."""
+    """Canonical config and hash, data fingerprints, versions, platform and task counts (no
+    timestamps)."""
     cfg = ev.plan.config
     failed = sum(int(r.failed.sum()) for dr in ev.datasets for r in dr.results)
     total = ev.plan.n_tasks
@@ -88,10 +137,13 @@ def manifest(ev: Evaluation) -> dict[str, Any]:
                 "series": dr.plan.panel.n_series,
                 "observations": int(len(dr.plan.panel.values)),
                 "origins": _origins_summary(dr.plan),
+                # missing actuals in test blocks (missing: interpolate): left out of the scores
+                "unscored_actuals": dr.unscored_actuals,
             }
             for dr, ds in zip(ev.datasets, cfg.datasets)
         },
         "versions": _versions(),
+        "platform": platform_info(),
         "tasks": {
             "total": total,
             # baseline tasks are always computed (vectorised; cheaper than a cache look-up)

@@ -1,4 +1,10 @@
-"""Forecasting every task of a plan and scoring it: the computational core of a run."""
+"""Forecasting every task of a plan and scoring it: the computational core of a run.
+
+A dataset read with ``missing: interpolate`` keeps its missing values as NaN. Every forecaster
+sees its training slice filled from that slice alone (:mod:`runner.forecasters.gaps`), and a
+missing actual in a test block is not scored: it is left out of every metric's mean, and the
+run reports how many there were (a note on stderr and ``unscored_actuals`` in the manifest).
+"""
 
 from __future__ import annotations
 
@@ -49,6 +55,16 @@ class DatasetResult:
     results: list[ForecasterResult]
     summary: SliceSummary
     warnings: list[str] = field(default_factory=list)
+    notes: list[str] = field(default_factory=list)
+
+    @property
+    def unscored_actuals(self) -> int:
+        """Missing actuals in the test blocks (not scored); each (series, time) counted once."""
+        missing = np.isnan(self.actual)
+        if not missing.any():
+            return 0
+        steps = np.arange(self.actual.shape[1])
+        return int(len(np.unique((self.plan.test_starts[:, None] + steps[None, :])[missing])))
 
 
 @dataclass
@@ -205,6 +221,8 @@ def evaluate(
     results = []
     for d, dp in enumerate(plan.datasets):
         s = summaries[d]
+        # missing actuals stay NaN: the metrics leave them out (never filled from a forecast's
+        # own training slice, nor from anything else)
         actual = dp.panel.values[dp.test_starts[:, None] + steps[None, :]]
         mase_scale = M.scale_mase(s.seasonal_abs, s.length, dp.panel.season)
         rmsse_scale = M.scale_rmsse(s.diff_sq, s.length)
@@ -215,8 +233,18 @@ def evaluate(
             )
             r.loss = M.pointwise_loss(cfg.rank_by, actual, r.point, mase_scale, rmsse_scale)
         warnings = _undefined_warnings(dp, ordered, cols)
+        result = DatasetResult(dp, actual, ordered, s, warnings)
+        if result.unscored_actuals:
+            hit = np.isnan(actual).any(axis=1)
+            result.notes.append(
+                f"dataset {dp.panel.name}: {result.unscored_actuals} missing actual(s) in the "
+                f"test blocks of {len(np.unique(dp.series[hit]))} series are not scored (left "
+                "out of every metric's mean)"
+            )
         if not quiet:
+            for note in result.notes:
+                print(f"castgrid: note: {note}", file=sys.stderr)
             for w in warnings:
                 print(f"castgrid: warning: {w}", file=sys.stderr)
-        results.append(DatasetResult(dp, actual, ordered, s, warnings))
+        results.append(result)
     return Evaluation(plan, results, counts, stopped)

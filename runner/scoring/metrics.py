@@ -33,6 +33,11 @@ read that table, so adding a metric is one entry plus its test.
 
 Undefined values (a zero scale, y = 0 for mape, a constant test block for r2) are NaN, never
 inf; :func:`score_tasks` reports which tasks produced them so the caller can warn.
+
+A missing actual (NaN in ``actual``, from a dataset read with ``missing: interpolate``) is not
+scored: a task's score is the reduction over its observed steps only, a step's score over the
+tasks observed at that step, and a task without any observed actual has no score (NaN, not
+counted as undefined).
 """
 
 from __future__ import annotations
@@ -87,6 +92,30 @@ class Metric:
     can_rank: bool = True
 
 
+#: Relative change of a leaderboard mean that ``castgrid diff`` reads as numerical noise from
+#: another platform (CPU, BLAS kernel), not as a real change. Measured on the demo across
+#: OpenBLAS kernels (README, "Reproducibility"): the largest difference of a score mean was
+#: about a tenth of this; a change that matters to a verdict is far larger.
+NOISE_RELATIVE = 1e-3
+
+
+def noise_tolerance(column: str, value: float, tasks: int, horizon: int, folds: int) -> float:
+    """The largest change of a leaderboard mean of ``column`` that is numerical noise.
+
+    ``value`` is the old mean; ``tasks`` / ``horizon`` / ``folds`` describe what it averages.
+    Every continuous metric allows :data:`NOISE_RELATIVE` of its value. Coverage counts hits,
+    so the smallest change it can make is one actual crossing an interval bound; it allows one
+    such crossing per fold: ``100 * folds / (horizon * tasks)`` percentage points.
+    """
+    if not np.isfinite(value):
+        return 0.0
+    if column.partition("_")[0] == "coverage":
+        if tasks <= 0 or horizon <= 0:
+            return 0.0
+        return 100.0 * max(folds, 1) / (horizon * tasks)
+    return NOISE_RELATIVE * abs(value)
+
+
 def _safe_div(num: np.ndarray, den: np.ndarray) -> np.ndarray:
     with np.errstate(divide="ignore", invalid="ignore"):
         out = num / den
@@ -101,7 +130,7 @@ def _error(x: LossInput) -> np.ndarray:
 def _coverage(x: LossInput) -> np.ndarray:
     inside = (x.actual >= x.lower) & (x.actual <= x.upper)
     out = 100.0 * inside.astype(float)
-    out[np.isnan(x.lower) | np.isnan(x.upper)] = np.nan
+    out[np.isnan(x.lower) | np.isnan(x.upper) | np.isnan(x.actual)] = np.nan
     return out
 
 
@@ -122,9 +151,16 @@ def _pinball(x: LossInput) -> np.ndarray:
 
 
 def _r2(actual: np.ndarray, forecast: np.ndarray) -> np.ndarray:
-    sse = ((actual - forecast) ** 2).sum(axis=1)
-    sst = ((actual - actual.mean(axis=1, keepdims=True)) ** 2).sum(axis=1)
-    return 1.0 - _safe_div(sse, sst)
+    # over the observed steps only: a missing actual is not scored
+    observed = ~np.isnan(actual)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        a = np.where(observed, actual, 0.0)
+        sse = np.where(observed, (actual - forecast) ** 2, 0.0).sum(axis=1)
+        mean = a.sum(axis=1) / observed.sum(axis=1)
+        sst = np.where(observed, (a - mean[:, None]) ** 2, 0.0).sum(axis=1)
+    out = 1.0 - _safe_div(sse, sst)
+    out[~observed.any(axis=1)] = np.nan
+    return out
 
 
 #: Every metric castgrid knows, in the order the documentation lists them.
@@ -232,12 +268,23 @@ def pointwise_loss(
     return m.loss(LossInput(actual, forecast, mase_scale, rmsse_scale))
 
 
-def _reduce(metric: Metric, loss: np.ndarray, axis: int) -> np.ndarray:
+def _reduce(
+    metric: Metric, loss: np.ndarray, axis: int, observed: np.ndarray | None = None
+) -> np.ndarray:
     # an all-NaN column (a forecaster without intervals) is simply NaN: no warning wanted
-    with np.errstate(invalid="ignore"), warnings.catch_warnings():
+    with np.errstate(invalid="ignore", divide="ignore"), warnings.catch_warnings():
         warnings.simplefilter("ignore", RuntimeWarning)
-        # a NaN anywhere in a task's block makes the task's score NaN (undefined, not skipped)
-        mean = loss.mean(axis=axis) if axis == 1 else np.nanmean(loss, axis=axis)
+        if axis == 1:
+            # a NaN at an observed step makes the task's score NaN (undefined, not skipped);
+            # steps whose actual is missing are not scored
+            if observed is None or observed.all():
+                mean = loss.mean(axis=1)
+            else:
+                count = observed.sum(axis=1)
+                mean = np.where(observed, loss, 0.0).sum(axis=1) / count
+                mean[count == 0] = np.nan
+        else:
+            mean = np.nanmean(loss, axis=axis)
     if metric.reduction == "root_mean":
         return np.sqrt(mean)
     return mean
@@ -272,12 +319,15 @@ def score_tasks(
     out: dict[str, Scored] = {}
     failed = np.isnan(forecast).any(axis=1)
     ok = ~failed
+    observed = ~np.isnan(actual)
+    scored = observed.any(axis=1)  # a task whose actuals are all missing has no score
     for col in cols:
         m = metric_of(col)
         if m.task_score is not None:
             per_task = m.task_score(actual, forecast)
-            per_task[failed] = np.nan
-            out[col] = Scored(per_task, np.full(actual.shape[1], np.nan), ok & np.isnan(per_task))
+            per_task[failed | ~scored] = np.nan
+            out[col] = Scored(per_task, np.full(actual.shape[1], np.nan),
+                              ok & scored & np.isnan(per_task))
             continue
         x = LossInput(actual, forecast, mase_scale, rmsse_scale)
         if m.per_level:
@@ -285,9 +335,9 @@ def score_tasks(
             i = levels.index(level)
             x = LossInput(actual, forecast, mase_scale, rmsse_scale, lower[i], upper[i], level)
         loss = m.loss(x)
-        per_task = _reduce(m, loss, axis=1)
+        per_task = _reduce(m, loss, axis=1, observed=observed)
         per_task[failed] = np.nan
-        undefined = ok & np.isnan(per_task)
+        undefined = ok & scored & np.isnan(per_task)
         if m.per_level:
             # a forecaster without intervals has NaN bounds everywhere: not "undefined"
             undefined &= ~np.isnan(x.lower).all(axis=1)

@@ -180,8 +180,8 @@ def compare_with_reference(
     (n, H) the pointwise losses of that metric (``|e| / scale`` for mase, ``e**2`` for rmse),
     ``series`` (n,) integer codes and ``folds`` (n,) fold numbers, all aligned row by row.
     ``step`` is the origin advance between folds (default: ``horizon``), which sets the
-    Diebold-Mariano ``h`` (see the module docstring). Tasks with a NaN score or loss on
-    either side are left out.
+    Diebold-Mariano ``h`` (see the module docstring). Tasks with a NaN score on either side
+    are left out; steps with a NaN loss (a missing actual) are left out of a task's block.
     """
     score = np.asarray(score, dtype=float)
     ref_score = np.asarray(ref_score, dtype=float)
@@ -192,16 +192,20 @@ def compare_with_reference(
     if not (ref_score.size == series.size == folds.size == score.size == loss.shape[0]):
         raise ValueError("score, ref_score, loss, ref_loss, series and folds must align")
 
-    ok = (
-        np.isfinite(score)
-        & np.isfinite(ref_score)
-        & np.isfinite(loss).all(axis=1)
-        & np.isfinite(ref_loss).all(axis=1)
-    )
+    # A step whose actual is missing has a NaN loss on both sides and is not scored; a task's
+    # block is the mean over its scored steps (all of them when nothing is missing).
+    steps = np.isfinite(loss) & np.isfinite(ref_loss)
+    ok = np.isfinite(score) & np.isfinite(ref_score) & steps.any(axis=1)
     if not ok.any():
         return RefComparison(math.nan, 0, 0, math.nan, False)
     score, ref_score, series, folds = score[ok], ref_score[ok], series[ok], folds[ok]
-    block_diff = loss[ok].mean(axis=1) - ref_loss[ok].mean(axis=1)
+    loss, ref_loss, steps = loss[ok], ref_loss[ok], steps[ok]
+    if steps.all():
+        block_diff = loss.mean(axis=1) - ref_loss.mean(axis=1)
+    else:
+        count = steps.sum(axis=1)
+        block_diff = (np.where(steps, loss, 0.0).sum(axis=1) / count
+                      - np.where(steps, ref_loss, 0.0).sum(axis=1) / count)
 
     win_share = float(np.mean(score < ref_score))
     h = dm_lag_order(horizon, step)
