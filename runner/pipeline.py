@@ -25,10 +25,15 @@ class RunResult:
     """What :func:`run` returns: the leaderboard, the task scores and where they were written."""
 
     leaderboard: pd.DataFrame
-    scores: pd.DataFrame
     out_dir: Path | None
     manifest: dict[str, Any]
     evaluation: Evaluation
+
+    @cached_property
+    def scores(self) -> pd.DataFrame:
+        """One row per dataset, series, forecaster and fold (:func:`scores_frame`); built on
+        first use, since the command line never needs it as a DataFrame."""
+        return scores_frame(self.evaluation)
 
     @property
     def failed_tasks(self) -> int:
@@ -150,9 +155,13 @@ def run(
     ev = evaluate(plan, use_cache=use_cache, jobs=jobs, quiet=quiet)
     board = build_leaderboard(ev)
     if target is not None:
+        from functools import partial
+
         from runner.report.page import build_report
 
-        man = write_results(ev, board, target, finish=build_report if report else None)
+        # plots whose data did not change are copied from the results being replaced
+        finish = partial(build_report, previous=target) if report else None
+        man = write_results(ev, board, target, finish=finish)
     else:
         man = build_manifest(ev)
-    return RunResult(board, scores_frame(ev), target, man, ev)
+    return RunResult(board, target, man, ev)

@@ -89,6 +89,16 @@ def failed(index: int, reason: str, message: str, seconds: float = 0.0) -> TaskO
     return TaskOutcome(index, None, None, None, reason=reason, message=message, seconds=seconds)
 
 
+def training_values(task: ModelTask, shared: SharedData) -> np.ndarray:
+    """The training values ``task``'s forecaster sees: a fresh copy of its slice, with missing
+    values filled from the slice alone (:func:`runner.forecasters.gaps.fill_slice`).
+
+    The cache key hashes exactly these values, so a cached forecast is one made from what the
+    forecaster would see now.
+    """
+    return fill_slice(shared.values[task.dataset][task.start : task.end])
+
+
 def error_outcome(index: int, exc: BaseException, seconds: float) -> TaskOutcome:
     """The failed outcome of a task whose forecaster raised ``exc`` (reason ``error``): the
     exception's type and message, and the file and line it was raised at."""
@@ -104,16 +114,6 @@ def run_task(task: Task, shared: SharedData) -> TaskOutcome:
     from runner.execution.panel_tasks import run_panel_task
 
     return run_panel_task(task, shared)
-
-
-def training_values(task: ModelTask, shared: SharedData) -> np.ndarray:
-    """The training values ``task``'s forecaster sees: a fresh copy of its slice, with missing
-    values filled from the slice alone (:func:`runner.forecasters.gaps.fill_slice`).
-
-    The cache key hashes exactly these values, so a cached forecast is one made from what the
-    forecaster would see now.
-    """
-    return fill_slice(shared.values[task.dataset][task.start : task.end])
 
 
 def task_slices(

@@ -229,15 +229,45 @@ def _numeric_board(folder: ResultsFolder, name: str, frame: pd.DataFrame) -> pd.
     return frame
 
 
-def read_table(folder: ResultsFolder, name: str, required: tuple[str, ...]) -> pd.DataFrame:
-    """A CSV or Parquet file of the folder, checked for ``required`` columns."""
+def _parquet_source(folder: ResultsFolder, name: str) -> Any:
+    """A path for pyarrow to read (only the parts it needs) or, from git, the file's bytes."""
+    if folder.path is not None:
+        path = folder.path / name
+        if not path.is_file():
+            folder.read_bytes(name)  # raises the usual DataError
+        return str(path)
+    return io.BytesIO(folder.read_bytes(name))
+
+
+def read_columns(folder: ResultsFolder, name: str, required: tuple[str, ...]) -> list[str]:
+    """The columns of a Parquet file of the folder (its footer only), checked for
+    ``required``."""
+    import pyarrow.parquet as pq
+
+    try:
+        names = list(pq.read_schema(_parquet_source(folder, name)).names)
+    except DataError:
+        raise
+    except Exception as exc:  # pyarrow raises several types for a damaged file
+        raise DataError(f"{folder.where(name)}: not a readable Parquet file ({exc})") from None
+    missing = [c for c in required if c not in names]
+    if missing:
+        raise DataError(f"{folder.where(name)}: column {missing[0]!r} is missing")
+    return names
+
+
+def read_table(folder: ResultsFolder, name: str, required: tuple[str, ...],
+               filters: list[tuple[str, str, Any]] | None = None) -> pd.DataFrame:
+    """A CSV or Parquet file of the folder, checked for ``required`` columns; ``filters``
+    (pyarrow's ``(column, op, value)`` triples) select rows of a Parquet file as it is read."""
     if not name.endswith(".parquet"):
         return _read_csv(folder, name, required)
     import pandas as pd
 
-    raw = folder.read_bytes(name)
     try:
-        frame = pd.read_parquet(io.BytesIO(raw))
+        frame = pd.read_parquet(_parquet_source(folder, name), filters=filters)
+    except DataError:
+        raise
     except Exception as exc:  # pyarrow raises several types for a damaged file
         raise DataError(f"{folder.where(name)}: not a readable Parquet file ({exc})") from None
     missing = [c for c in required if c not in frame.columns]

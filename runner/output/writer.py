@@ -38,30 +38,35 @@ from runner.windows.plan import DatasetPlan
 
 
 def _dict_array(codes: np.ndarray, labels: list[str]):
-    """A dictionary-encoded text column. Labels are made unique first (two datasets may name
-    their series alike), since readers refuse a dictionary with repeated values."""
+    """A dictionary-encoded text column: ``codes`` index ``labels``. Repeated labels (two
+    datasets may name their series alike) are merged first, since readers refuse a dictionary
+    with repeated values; otherwise the codes are used as they are."""
     import pyarrow as pa
+    import pyarrow.compute as pc
 
-    unique, first_of = np.unique(np.asarray(labels, dtype=object).astype(str), return_inverse=True)
-    codes = first_of[np.asarray(codes, dtype=np.int64)].astype(np.int32)
-    return pa.DictionaryArray.from_arrays(pa.array(codes), pa.array(unique, type=pa.string()))
+    text = pa.array(labels, type=pa.string())
+    codes = np.asarray(codes)
+    if len(pc.unique(text)) != len(text):
+        unique, first_of = np.unique(np.asarray(labels, dtype=object).astype(str),
+                                     return_inverse=True)
+        codes, text = first_of[codes], pa.array(unique, type=pa.string())
+    return pa.DictionaryArray.from_arrays(pa.array(codes.astype(np.int32, copy=False)), text)
 
 
 def _versions() -> dict[str, str]:
-    import pyarrow
-    import pydantic
-    import scipy
-    import statsmodels
+    # From the installed packages' metadata: importing statsmodels and scipy only to read
+    # their versions would cost a run that fits nothing most of a second.
+    from importlib.metadata import version
 
     return {
         "castgrid": __version__,
         "python": platform.python_version(),
         "numpy": np.__version__,
         "pandas": pd.__version__,
-        "statsmodels": statsmodels.__version__,
-        "scipy": scipy.__version__,
-        "pydantic": pydantic.__version__,
-        "pyarrow": pyarrow.__version__,
+        "statsmodels": version("statsmodels"),
+        "scipy": version("scipy"),
+        "pydantic": version("pydantic"),
+        "pyarrow": version("pyarrow"),
     }
 
 
@@ -219,6 +224,10 @@ def time_array(ev: Evaluation, dataset: np.ndarray, position: np.ndarray) -> Any
 
     panels = [dr.plan.panel for dr in ev.datasets]
     kinds = {p.times.dtype.kind for p in panels}
+    if len(panels) == 1 and kinds <= {"M", "i"}:  # one dataset: one gather, no masks
+        times = panels[0].times[position]
+        return pa.array(times.astype("datetime64[ns]" if kinds == {"M"} else np.int64,
+                                     copy=False))
     if kinds <= {"M"} or kinds <= {"i"}:
         dtype = "datetime64[ns]" if kinds == {"M"} else np.int64
         out = np.empty(len(position), dtype=dtype)

@@ -9,6 +9,10 @@ leaderboard's deciding columns and every metric (:mod:`runner.report.tables`), a
 Only leaderboard.csv and manifest.json are required: a plot whose source file is absent is
 replaced by a note saying which file is missing. A damaged file is an error, and nothing is
 written then.
+
+A plot whose data did not change since the PNG of the same name was drawn (in the folder the
+report is built in, or in ``previous``: the results folder a run is replacing) is copied, not
+drawn again (:mod:`runner.report.reuse`); a report that draws nothing never imports matplotlib.
 """
 
 from __future__ import annotations
@@ -26,13 +30,14 @@ from runner.output.numbers import column_decimals, format_number, format_percent
 from runner.output.reader import FORECASTS, HISTORY, HORIZON, SCORES
 from runner.report.plots import (
     MAX_LINES,
-    Drawn,
-    draw_folds,
-    draw_forecasts,
-    draw_history,
-    draw_horizon,
-    draw_skill,
+    Sketch,
     history_runs,
+    series_extremes,
+    sketch_folds,
+    sketch_forecasts,
+    sketch_history,
+    sketch_horizon,
+    sketch_skill,
 )
 from runner.report.reading import DatasetView, Results, complete_flags, dataset_views, read_results
 from runner.report.style import CSS, RC
@@ -49,20 +54,48 @@ PLOTS = "plots"
 
 @dataclass
 class Plot:
-    """One plot of the page: file name, title, caption, PNG (None: not drawn, ``missing`` why)."""
+    """One plot of the page: file name, title, caption, what it draws (None: nothing to draw,
+    ``missing`` says why) and, once rendered, its PNG and notes."""
 
     file: str
     title: str
     caption: str
+    sketch: Sketch | None = None
     png: bytes | None = None
     missing: str = ""
     notes: list[str] = field(default_factory=list)
 
-    def take(self, drawn: Drawn | None) -> None:
-        """Keep a drawing's PNG and notes (nothing when it was not drawn)."""
-        if drawn is not None:
-            self.png = drawn.png()
-            self.notes = drawn.notes
+    def take(self, sketch: Sketch | None) -> None:
+        """Keep what the plot will draw (nothing when there is nothing to draw)."""
+        self.sketch = sketch
+
+
+def render(plots: list[Plot], places: list[Path]) -> int:
+    """Give every plot with a sketch its PNG and notes: the PNG of the same name and key from
+    the first of ``places`` (plot folders) that has one, else a new drawing. Returns how many
+    plots were drawn."""
+    from runner.report.reuse import plot_key, reusable, stamp
+
+    todo = []
+    for p in plots:
+        if p.sketch is None:
+            continue
+        key = plot_key(p.file, p.sketch.data)
+        found = reusable(places, p.file, key)
+        if found is not None:
+            p.png, p.notes = found
+        else:
+            todo.append((p, key))
+    if todo:
+        from matplotlib import rc_context
+
+        with rc_context(RC):
+            for p, key in todo:
+                assert p.sketch is not None
+                drawn = p.sketch.draw()
+                p.notes = drawn.notes
+                p.png = drawn.png(stamp(key, drawn.notes))
+    return len(todo)
 
 
 def _plot_html(plot: Plot) -> str:
@@ -159,7 +192,7 @@ def _dataset_plots(view: DatasetView, results: Results) -> list[Plot]:
     if results.horizon is None:
         p.missing = f"{HORIZON} is not in the results folder"
     else:
-        p.take(draw_horizon(view, results.horizon))
+        p.take(sketch_horizon(view, results.horizon))
         p.missing = f"no {m} column for this dataset in {HORIZON}"
     out.append(p)
 
@@ -169,16 +202,22 @@ def _dataset_plots(view: DatasetView, results: Results) -> list[Plot]:
     if results.scores is None:
         p.missing = f"{SCORES} is not in the results folder"
     else:
-        p.take(draw_folds(view, results.scores))
+        p.take(sketch_folds(view, results.scores))
         p.missing = f"no {m} scores for this dataset in {SCORES}"
     out.append(p)
 
     p = Plot(f"{d}-forecasts.png", "forecasts against actuals", "")
-    if results.forecasts is None:
+    if not results.has_forecasts:
         p.missing = f"{FORECASTS} is not in the results folder"
     else:
-        drawn, note = draw_forecasts(view, results.forecasts, results.scores)
-        p.take(drawn)
+        # only the rows drawn are read: the best candidate's best and worst series
+        best = view.best()
+        drawn = [n for n in (best, view.reference) if n is not None]
+        picks = (series_extremes(view, results.scores, best)
+                 if best is not None and results.scores is not None else None)
+        rows = results.forecast_rows(d, picks, drawn)
+        sketch, note = sketch_forecasts(view, rows, results.scores)
+        p.take(sketch)
         p.caption = (f"Best and worst series (by mean {m}) of the best candidate: {note}. "
                      "The dashed black line is the reference's forecast.")
         p.missing = note
@@ -186,7 +225,7 @@ def _dataset_plots(view: DatasetView, results: Results) -> list[Plot]:
 
     p = Plot(f"{d}-skill.png", "skill against the reference",
              f"1 - {m} / {m} of the reference; bold labels mark significant wins.")
-    p.take(draw_skill(view))
+    p.take(sketch_skill(view))
     p.missing = f"no {m}_rel column or no forecaster other than the reference"
     out.append(p)
 
@@ -194,10 +233,14 @@ def _dataset_plots(view: DatasetView, results: Results) -> list[Plot]:
     if results.history is None:
         p.missing = f"{HISTORY} is not in the results folder"
     else:
-        p.take(draw_history(view, results.history))
+        p.take(sketch_history(view, results.history))
         runs = len(history_runs(view, results.history))
-        p.missing = (f"{HISTORY} has {runs} run(s) with scores for this dataset by {m}; the "
-                     "plot needs two or more" if runs < 2
+        every = sum(1 for e in results.history
+                    if view.dataset in e["scores"] and e["rank_by"] == m)
+        repeats = (f" ({every - runs} repeating the run before: same config, data and scores)"
+                   if every > runs else "")
+        p.missing = (f"{HISTORY} has {every} run(s) with scores for this dataset by {m}"
+                     f"{repeats}; the plot needs two or more that differ" if runs < 2
                      else f"no forecaster has a {m} in {HISTORY}")
     out.append(p)
     return out
@@ -220,17 +263,24 @@ def _segment_sections(view: DatasetView, results: Results) -> tuple[str, list[Pl
         parts.append(f"<h3>Skill per {html.escape(attribute)} (1 - {view.rank_by}_rel, %)</h3>"
                      + segment_skill_html(frame, view.reference,
                                           label=f"skill per {attribute} of {view.dataset}"))
-        if members is None or attribute not in members.columns or results.forecasts is None:
+        if members is None or attribute not in members.columns or not results.has_forecasts:
             continue
         rows = members[members["dataset"].astype(str) == view.dataset]
+        best = view.best()
+        drawn_names = [n for n in (best, view.reference) if n is not None]
         for value in frame.columns:
-            series = rows.loc[rows[attribute].astype(str) == str(value), "series"].astype(str)
+            series = list(rows.loc[rows[attribute].astype(str) == str(value), "series"]
+                          .astype(str))
             slug = "".join(ch if ch.isalnum() else "-" for ch in f"{attribute}-{value}")
             p = Plot(f"{view.dataset}-forecasts-{slug}.png",
                      f"forecasts on {attribute} {value}", "")
-            drawn, note = draw_forecasts(view, results.forecasts, results.scores,
-                                         series=list(series), title=f"{attribute} {value}")
-            p.take(drawn)
+            # only the rows drawn are read: the best and worst series of this segment
+            picks = (series_extremes(view, results.scores, best, series)
+                     if best is not None and results.scores is not None else series)
+            part = results.forecast_rows(view.dataset, picks, drawn_names)
+            sketch, note = sketch_forecasts(view, part, results.scores, series=series,
+                                            title=f"{attribute} {value}")
+            p.take(sketch)
             p.caption = f"Best and worst series of this segment (by mean {view.rank_by}): {note}."
             p.missing = note
             plots.append(p)
@@ -249,30 +299,31 @@ def _atomic_write(path: Path, data: bytes) -> None:
         raise
 
 
-def build_report(out_dir: Path) -> Path:
+def build_report(out_dir: Path, previous: Path | None = None) -> Path:
     """Write ``report.html`` and ``plots/*.png`` for the results folder ``out_dir``.
 
+    ``previous`` is a results folder whose plots may be reused (a run builds the report in a
+    new folder that replaces ``previous``); the plots already in ``out_dir`` may be reused too.
     Returns the path of report.html. Raises DataError when leaderboard.csv or manifest.json
     is missing or any file present is damaged; nothing is written in that case.
     """
-    from matplotlib import rc_context
-
     out_dir = Path(out_dir)
-    results = read_results(out_dir)
-    sections: list[str] = []
-    plots: list[Plot] = []
-    with rc_context(RC):
-        for view in dataset_views(results):
-            mine = _dataset_plots(view, results)
-            segment_html, segment_plots = _segment_sections(view, results)
-            plots.extend(mine + segment_plots)
-            sections.append(
-                f"<h2>dataset {html.escape(view.dataset)}</h2>"
-                f'<div class="card">{_summary_html(view)}{leaderboard_html(view)}'
-                f"<h3>Every metric (mean \u00b1 sd over folds)</h3>{metrics_html(view)}"
-                f"{segment_html}</div>"
-                f'<div class="grid">{"".join(_plot_html(p) for p in mine + segment_plots)}</div>'
-            )
+    results = read_results(out_dir, forecasts=False)
+    per_view = []
+    for view in dataset_views(results):
+        segment_html, segment_plots = _segment_sections(view, results)
+        per_view.append((view, _dataset_plots(view, results) + segment_plots, segment_html))
+    plots = [p for _, mine, _ in per_view for p in mine]
+    places = [out_dir / PLOTS] + ([Path(previous) / PLOTS] if previous is not None else [])
+    render(plots, places)
+    sections = [
+        f"<h2>dataset {html.escape(view.dataset)}</h2>"
+        f'<div class="card">{_summary_html(view)}{leaderboard_html(view)}'
+        f"<h3>Every metric (mean \u00b1 sd over folds)</h3>{metrics_html(view)}"
+        f"{segment_html}</div>"
+        f'<div class="grid">{"".join(_plot_html(p) for p in mine)}</div>'
+        for view, mine, segment_html in per_view
+    ]
     page = _page(results.manifest, sections, failures_html(results.failures))
 
     plot_dir = out_dir / PLOTS

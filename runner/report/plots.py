@@ -2,7 +2,9 @@
 
 Each ``draw_*`` function takes one dataset's :class:`~runner.report.reading.DatasetView` and
 the table it draws from, and returns a :class:`Drawn` (the figure and the notes the page shows
-under it) or None when there is nothing to draw:
+under it) or None when there is nothing to draw. Each is a ``sketch_*`` function, which
+computes everything the plot shows without matplotlib (a :class:`Sketch`, whose data keys the
+PNG so that an unchanged plot is reused, :mod:`runner.report.reuse`), followed by drawing it:
 
 * :func:`draw_horizon`: the rank metric by forecast step, a line per forecaster;
 * :func:`draw_folds`: the rank metric of each fold (mean over series), a line per forecaster;
@@ -19,7 +21,7 @@ what is off the scale. A legend lists only forecasters with at least one point i
 from __future__ import annotations
 
 import math
-from collections.abc import Sequence
+from collections.abc import Callable, Sequence
 from dataclasses import dataclass, field
 from typing import TYPE_CHECKING, Any
 
@@ -49,12 +51,13 @@ class Drawn:
     figure: Figure
     notes: list[str] = field(default_factory=list)
 
-    def png(self) -> bytes:
-        """The figure as PNG bytes, without a time stamp or software tag (reproducible)."""
+    def png(self, text: dict[str, str] | None = None) -> bytes:
+        """The figure as PNG bytes, without a time stamp or software tag (reproducible);
+        ``text`` is stored in the file as PNG text chunks (ASCII keys and values)."""
         import io
 
         buf = io.BytesIO()
-        self.figure.savefig(buf, format="png", metadata={"Software": None})
+        self.figure.savefig(buf, format="png", metadata={"Software": None, **(text or {})})
         return buf.getvalue()
 
     def legend_names(self) -> list[list[str]]:
@@ -64,6 +67,20 @@ class Drawn:
             legend = ax.get_legend()
             out.append([t.get_text() for t in legend.get_texts()] if legend else [])
         return out
+
+
+@dataclass
+class Sketch:
+    """Everything one plot shows, computed without matplotlib: ``data`` (plain values, lines,
+    labels, small tables) and ``paint``, which draws exactly ``data``. The report keys the PNG
+    by ``data`` and reuses the previous run's PNG when the key is the same."""
+
+    data: dict[str, Any]
+    paint: Callable[[dict[str, Any]], Drawn]
+
+    def draw(self) -> Drawn:
+        """Draw the plot (imports matplotlib)."""
+        return self.paint(self.data)
 
 
 def _figure(height: float) -> Figure:
@@ -151,6 +168,12 @@ def _mark_beyond(ax: Axes, ln: _Line, scale: Scale) -> None:
 
 def draw_horizon(view: DatasetView, horizon: pd.DataFrame) -> Drawn | None:
     """The rank metric by forecast step, one line per forecaster (best MAX_LINES and the ref.)."""
+    sketch = sketch_horizon(view, horizon)
+    return None if sketch is None else sketch.draw()
+
+
+def sketch_horizon(view: DatasetView, horizon: pd.DataFrame) -> Sketch | None:
+    """What :func:`draw_horizon` draws."""
     part = horizon[horizon["dataset"] == view.dataset]
     m = view.rank_by
     if m not in part.columns or part.empty:
@@ -163,6 +186,11 @@ def draw_horizon(view: DatasetView, horizon: pd.DataFrame) -> Drawn | None:
                                rows[m].astype(float).tolist(), view.look(name)))
     if not lines:
         return None
+    return Sketch({"metric": m, "lines": lines}, _paint_horizon)
+
+
+def _paint_horizon(data: dict[str, Any]) -> Drawn:
+    m, lines = data["metric"], data["lines"]
     fig = _figure(3.8)
     ax = fig.add_subplot()
     notes = _draw_lines(ax, lines, m)
@@ -179,6 +207,12 @@ def draw_folds(view: DatasetView, scores: pd.DataFrame) -> Drawn | None:
     The x-axis is the fold's origin time when the folder names folds by origin, else the fold
     number. The leaderboard's mean and sd are over exactly these points.
     """
+    sketch = sketch_folds(view, scores)
+    return None if sketch is None else sketch.draw()
+
+
+def sketch_folds(view: DatasetView, scores: pd.DataFrame) -> Sketch | None:
+    """What :func:`draw_folds` draws."""
     part = scores[scores["dataset"] == view.dataset]
     m = view.rank_by
     if m not in part.columns or part.empty:
@@ -197,16 +231,24 @@ def draw_folds(view: DatasetView, scores: pd.DataFrame) -> Drawn | None:
                            mine.to_numpy(dtype=float)[order].tolist(), view.look(name)))
     if not any(any(math.isfinite(v) for v in ln.y) for ln in lines):
         return None
-    fig = _figure(3.8)
-    ax = fig.add_subplot()
-    notes = _draw_lines(ax, lines, f"{m} of a fold")
+    data: dict[str, Any] = {"metric": m, "key": key, "lines": lines}
     if key == "origin":  # a tick at each origin, named as the folder names it
         names = part[key].astype(str).drop_duplicates().reset_index(drop=True)
         times = _time_axis(names)
         order = times.argsort(kind="stable").to_numpy()
         step = max(1, len(order) // 12)
-        ax.set_xticks(list(times.to_numpy()[order][::step]),
-                      list(names.to_numpy()[order][::step]), rotation=30, ha="right")
+        data["ticks"] = list(times.to_numpy()[order][::step])
+        data["tick_labels"] = list(names.to_numpy()[order][::step])
+    return Sketch(data, _paint_folds)
+
+
+def _paint_folds(data: dict[str, Any]) -> Drawn:
+    m, key, lines = data["metric"], data["key"], data["lines"]
+    fig = _figure(3.8)
+    ax = fig.add_subplot()
+    notes = _draw_lines(ax, lines, f"{m} of a fold")
+    if key == "origin":
+        ax.set_xticks(data["ticks"], data["tick_labels"], rotation=30, ha="right")
         ax.set_xlabel("origin (time of the last training observation)")
     else:
         ax.set_xlabel("fold")
@@ -214,6 +256,15 @@ def draw_folds(view: DatasetView, scores: pd.DataFrame) -> Drawn | None:
     ax.set_ylabel(f"{m} (mean over series)")
     ax.set_title(f"{m} fold by fold")
     return Drawn(fig, notes)
+
+
+def text_in(column: pd.Series, names: Sequence[Any]) -> pd.Series:
+    """Rows of ``column`` whose value, as text, is one of ``names``: the text of each distinct
+    value is compared, never that of every row (a column may hold millions)."""
+    import pandas as pd
+
+    wanted = {str(n) for n in names}
+    return column.isin([v for v in pd.unique(column) if str(v) in wanted])
 
 
 def series_extremes(view: DatasetView, scores: pd.DataFrame, forecaster: str,
@@ -225,8 +276,10 @@ def series_extremes(view: DatasetView, scores: pd.DataFrame, forecaster: str,
     """
     part = scores[(scores["dataset"] == view.dataset) & (scores["forecaster"] == forecaster)]
     if series is not None:
-        part = part[part["series"].astype(str).isin([str(s) for s in series])]
-    means = part.groupby(part["series"].astype(str))[view.rank_by].mean().dropna()
+        part = part[text_in(part["series"], series)]
+    means = part.groupby("series", observed=True, sort=False)[view.rank_by].mean()
+    means.index = means.index.astype(str)
+    means = means.dropna()
     if means.empty:
         return []
     order = sorted(means.items(), key=lambda kv: (kv[1], kv[0]))
@@ -244,12 +297,20 @@ def draw_forecasts(view: DatasetView, forecasts: pd.DataFrame, scores: pd.DataFr
     drawing (None when there is nothing to draw) and a sentence saying what is shown or why
     nothing is.
     """
+    sketch, note = sketch_forecasts(view, forecasts, scores, series, title)
+    return (None if sketch is None else sketch.draw()), note
+
+
+def sketch_forecasts(view: DatasetView, forecasts: pd.DataFrame, scores: pd.DataFrame | None,
+                     series: Sequence[str] | None = None, title: str = ""
+                     ) -> tuple[Sketch | None, str]:
+    """What :func:`draw_forecasts` draws, and its sentence."""
     best = view.best()
     if best is None:
         return None, "no forecaster has a score"
     part = forecasts[forecasts["dataset"] == view.dataset]
     if series is not None:
-        part = part[part["series"].astype(str).isin([str(s) for s in series])]
+        part = part[text_in(part["series"], series)]
     if scores is not None:
         picks = series_extremes(view, scores, best, series)
     else:  # no scores: the first series the best forecaster has forecasts for
@@ -257,34 +318,51 @@ def draw_forecasts(view: DatasetView, forecasts: pd.DataFrame, scores: pd.DataFr
         picks = picks[:1]
     if not picks:
         return None, f"{best} has no scored series"
-    fig = _figure(3.0 * len(picks))
-    axes = fig.subplots(len(picks), 1, squeeze=False)[:, 0]
     levels = sorted({m.group(1) for c in part.columns if (m := INTERVAL_LOW.match(c))}, key=float)
-    notes: list[str] = []
-    labels = ["best series", "worst series"]
-    for ax, name, label in zip(axes, picks, labels):
-        rows = part[part["series"].astype(str) == name].copy()
+    level = levels[0] if levels else None
+    drawn = [best] + ([view.reference] if view.reference and view.reference != best else [])
+    panels = []
+    for name, label in zip(picks, ["best series", "worst series"]):
+        rows = part[text_in(part["series"], [name])]
+        # only what the panel draws, so that the plot's key changes only when the plot does
+        rows = rows[text_in(rows["forecaster"], drawn)].copy()
         rows["_t"] = _time_axis(rows["time"])
-        notes += [f"{name}: {note}" for note in
-                  _forecast_panel(ax, view, rows, best, levels[0] if levels else None)]
+        key = fold_key(rows)
+        keep = ["_t", "actual", "forecast", "forecaster", key]
+        keep += list(interval_columns(level)) if level is not None else []
+        rows = rows[[c for c in keep if c in rows.columns]]
+        panels.append({"series": name, "label": label, "key": key,
+                       "rows": rows.reset_index(drop=True)})
+    data = {"title": title, "best": best, "drawn": drawn, "level": level, "panels": panels,
+            "looks": {who: view.look(who) for who in drawn}}
+    return Sketch(data, _paint_forecasts), f"forecaster {best}; one line per fold's forecast block"
+
+
+def _paint_forecasts(data: dict[str, Any]) -> Drawn:
+    panels, title = data["panels"], data["title"]
+    fig = _figure(3.0 * len(panels))
+    axes = fig.subplots(len(panels), 1, squeeze=False)[:, 0]
+    notes: list[str] = []
+    for ax, panel in zip(axes, panels):
+        name, label = panel["series"], panel["label"]
+        notes += [f"{name}: {note}" for note in _forecast_panel(ax, data, panel)]
         ax.set_title(f"{title}: {label}: {name}" if title else f"{label}: {name}", loc="left")
         ax.set_ylabel("value")
-    return Drawn(fig, notes), f"forecaster {best}; one line per fold's forecast block"
+    return Drawn(fig, notes)
 
 
-def _forecast_panel(ax: Axes, view: DatasetView, rows: pd.DataFrame, best: str,
-                    level: str | None) -> list[str]:
+def _forecast_panel(ax: Axes, data: dict[str, Any], panel: dict[str, Any]) -> list[str]:
     """One series: actuals, the best forecaster's blocks and interval, the reference's blocks."""
+    best, level, drawn = data["best"], data["level"], data["drawn"]
+    rows, key = panel["rows"], panel["key"]
     actual = rows.drop_duplicates("_t").sort_values("_t")
     ax.plot(actual["_t"], actual["actual"], color=ACTUAL_COLOR, linewidth=1.3, marker="o",
             markersize=2.8, label="actual", zorder=6)
-    key = fold_key(rows)
     plotted: dict[str, list[float]] = {"actual": actual["actual"].astype(float).tolist()}
     blocks: list[_Line] = []
     bounds: list[float] = []  # the interval takes part in the range, is never named off it
-    drawn = [best] + ([view.reference] if view.reference and view.reference != best else [])
     for who in drawn:
-        look = view.look(who)
+        look = data["looks"][who]
         style = look.line(markersize=0)
         if who != best:
             style["linewidth"] = 1.6  # the reference is for comparison: lighter than the best
@@ -324,6 +402,12 @@ def draw_skill(view: DatasetView) -> Drawn | None:
 
     A bar beyond the robust range is cut at its edge, hatched, and labelled with its value.
     """
+    sketch = sketch_skill(view)
+    return None if sketch is None else sketch.draw()
+
+
+def sketch_skill(view: DatasetView) -> Sketch | None:
+    """What :func:`draw_skill` draws."""
     import numpy as np
 
     rel_col = f"{view.rank_by}_rel"
@@ -339,9 +423,18 @@ def draw_skill(view: DatasetView) -> Drawn | None:
     values = [float(skill[i]) for i in order]
     beats = ([bool(rows["beats_reference"].iloc[i]) for i in order]
              if "beats_reference" in rows.columns else [False] * len(order))
-    scale = robust_scale({n: [v] for n, v in zip(names, values)}, include=[0.0])
-    if scale is None:
+    if robust_scale({n: [v] for n, v in zip(names, values)}, include=[0.0]) is None:
         return None
+    return Sketch({"names": names, "values": values, "beats": beats, "metric": view.rank_by,
+                   "reference": view.reference}, _paint_skill)
+
+
+def _paint_skill(data: dict[str, Any]) -> Drawn:
+    import numpy as np
+
+    names, values, beats = data["names"], data["values"], data["beats"]
+    scale = robust_scale({n: [v] for n, v in zip(names, values)}, include=[0.0])
+    assert scale is not None  # the sketch checked
     fig = _figure(0.9 + 0.34 * len(names))
     ax = fig.add_subplot()
     pos = np.arange(len(names))[::-1]
@@ -371,8 +464,9 @@ def draw_skill(view: DatasetView) -> Drawn | None:
     ax.set_xlim(left, right_edge)
     ax.set_yticks(pos, names)
     ax.set_ylim(-0.6, len(names) - 0.4)
-    ax.set_xlabel(f"skill = 1 - {view.rank_by} / {view.rank_by} of {view.reference} (percent)")
-    ax.set_title(f"skill against the reference ({view.reference})")
+    m, ref = data["metric"], data["reference"]
+    ax.set_xlabel(f"skill = 1 - {m} / {m} of {ref} (percent)")
+    ax.set_title(f"skill against the reference ({ref})")
     ax.grid(axis="y", visible=False)
     notes = [f"{n}: skill {format_percent(v)} (off the scale)"
              for n, v in zip(names, values) if n in scale.off]
@@ -380,12 +474,32 @@ def draw_skill(view: DatasetView) -> Drawn | None:
 
 
 def history_runs(view: DatasetView, entries: list[dict[str, Any]]) -> list[dict[str, Any]]:
-    """The history entries with scores for this dataset by its rank metric."""
-    return [e for e in entries if view.dataset in e["scores"] and e["rank_by"] == view.rank_by]
+    """The history entries with scores for this dataset by its rank metric, a run that repeats
+    the one before it (same config, same data, same scores) left out.
+
+    A repeated run adds no information to the plot, and leaving it out keeps the plot, and
+    its PNG, unchanged when an unchanged experiment is rerun.
+    """
+    out: list[dict[str, Any]] = []
+    last = None
+    for e in entries:
+        if view.dataset not in e["scores"] or e["rank_by"] != view.rank_by:
+            continue
+        same = (e["config_hash"], e["data"].get(view.dataset), e["scores"][view.dataset])
+        if same != last:
+            out.append(e)
+        last = same
+    return out
 
 
 def draw_history(view: DatasetView, entries: list[dict[str, Any]]) -> Drawn | None:
     """The rank metric of each forecaster run by run (None with fewer than two runs)."""
+    sketch = sketch_history(view, entries)
+    return None if sketch is None else sketch.draw()
+
+
+def sketch_history(view: DatasetView, entries: list[dict[str, Any]]) -> Sketch | None:
+    """What :func:`draw_history` draws."""
     from runner.output.history import run_labels
 
     runs = history_runs(view, entries)
@@ -401,13 +515,19 @@ def draw_history(view: DatasetView, entries: list[dict[str, Any]]) -> Drawn | No
             lines.append(_Line(name, x, ys, view.look(name)))
     if not lines:
         return None
+    return Sketch({"metric": view.rank_by, "lines": lines, "labels": labels}, _paint_history)
+
+
+def _paint_history(data: dict[str, Any]) -> Drawn:
+    m, lines, labels = data["metric"], data["lines"], data["labels"]
+    x = list(range(len(labels)))
     fig = _figure(3.6)
     ax = fig.add_subplot()
-    notes = _draw_lines(ax, lines, view.rank_by)
+    notes = _draw_lines(ax, lines, m)
     step = max(1, len(x) // 10)
     ax.set_xticks(x[::step], labels[::step], rotation=30, ha="right")
     ax.set_xlim(-0.5, len(x) - 0.5)
     ax.set_xlabel("run (UTC time and config hash)")
-    ax.set_ylabel(view.rank_by)
-    ax.set_title(f"{view.rank_by} run by run ({len(runs)} runs)")
+    ax.set_ylabel(m)
+    ax.set_title(f"{m} run by run ({len(labels)} runs)")
     return Drawn(fig, notes)

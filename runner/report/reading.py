@@ -24,6 +24,7 @@ from runner.output.reader import (
     HORIZON,
     SCORES,
     ResultsFolder,
+    read_columns,
     read_leaderboard,
     read_manifest,
     read_segment_leaderboard,
@@ -39,7 +40,12 @@ if TYPE_CHECKING:  # the command line imports this module at start; pandas loads
 
 @dataclass
 class Results:
-    """The files of one results folder that the report draws from (None: file absent)."""
+    """The files of one results folder that the report draws from (None: file absent).
+
+    ``forecasts`` is None too when it was left unread (``read_results(..., forecasts=False)``):
+    ``has_forecasts`` says whether the folder has the file, and :meth:`forecast_rows` reads
+    the rows a plot needs.
+    """
 
     manifest: dict[str, Any]
     rank_by: str
@@ -52,6 +58,25 @@ class Results:
     #: leaderboard_segments.csv and series_segments.csv (None: a run without ``segments:``)
     segments: pd.DataFrame | None = None
     series_segments: pd.DataFrame | None = None
+    folder: ResultsFolder | None = None
+    has_forecasts: bool = False
+
+    def forecast_rows(self, dataset: str, series: list[str] | None,
+                      forecasters: list[str]) -> pd.DataFrame:
+        """forecasts.parquet rows of ``dataset``, ``forecasters`` and ``series`` (all when
+        None), from memory when the table was read, else read from the file with those filters
+        (a large file is never read whole)."""
+        if self.forecasts is not None:
+            frame = self.forecasts
+            keep = (frame["dataset"] == dataset) & frame["forecaster"].isin(forecasters)
+            if series is not None:
+                keep &= frame["series"].isin(series)
+            return frame[keep]
+        assert self.folder is not None and self.has_forecasts
+        filters = [("dataset", "=", dataset), ("forecaster", "in", list(forecasters))]
+        if series is not None:
+            filters.append(("series", "in", list(series)))
+        return read_table(self.folder, FORECASTS, (), filters=filters)
 
 
 def _optional(folder: ResultsFolder, name: str, required: tuple[str, ...]) -> pd.DataFrame | None:
@@ -68,18 +93,29 @@ def _history(folder: ResultsFolder) -> list[dict[str, Any]] | None:
     return parse_history(folder.read_text(HISTORY), folder.where(HISTORY))
 
 
-def read_results(out_dir: Path) -> Results:
-    """Every file the report uses; DataError when a required one is missing or any is damaged."""
+def read_results(out_dir: Path, *, forecasts: bool = True) -> Results:
+    """Every file the report uses; DataError when a required one is missing or any is damaged.
+
+    ``forecasts=False`` leaves forecasts.parquet unread but for its columns (checked), to be
+    read in parts by :meth:`Results.forecast_rows`.
+    """
     folder = ResultsFolder.open(out_dir)
     manifest = read_manifest(folder)
     rank_by = manifest["rank_by"]
     base = ("dataset", "forecaster")
     board = read_leaderboard(folder, rank_by)
     scores = _optional(folder, SCORES, base + ("series",))
-    forecasts = _optional(folder, FORECASTS, base + ("series", "step", "time", "actual",
-                                                     "forecast"))
-    for name, frame in ((SCORES, scores), (FORECASTS, forecasts)):
-        if frame is not None and not {"fold", "origin"} & set(frame.columns):
+    wanted = base + ("series", "step", "time", "actual", "forecast")
+    has_forecasts = folder.exists(FORECASTS)
+    if forecasts:
+        frame = _optional(folder, FORECASTS, wanted)
+        forecast_columns = None if frame is None else list(frame.columns)
+    else:
+        frame = None
+        forecast_columns = read_columns(folder, FORECASTS, wanted) if has_forecasts else None
+    for name, columns in ((SCORES, None if scores is None else list(scores.columns)),
+                          (FORECASTS, forecast_columns)):
+        if columns is not None and not {"fold", "origin"} & set(columns):
             raise DataError(f"{folder.where(name)}: column 'fold' is missing (or 'origin')")
     return Results(
         manifest=manifest,
@@ -87,11 +123,13 @@ def read_results(out_dir: Path) -> Results:
         board=board,
         horizon=_optional(folder, HORIZON, base + ("step",)),
         scores=scores,
-        forecasts=forecasts,
+        forecasts=frame,
         failures=_optional(folder, FAILURES, base + ("reason",)),
         history=_history(folder),
         segments=read_segment_leaderboard(folder, rank_by),
         series_segments=_optional(folder, SERIES_SEGMENTS, ("dataset", "series")),
+        folder=folder,
+        has_forecasts=has_forecasts,
     )
 
 

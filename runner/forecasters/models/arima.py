@@ -17,7 +17,6 @@ from __future__ import annotations
 from typing import Any
 
 import numpy as np
-from statsmodels.tsa.arima.model import ARIMA
 
 from runner.forecasters.contract import Forecast
 from runner.forecasters.intervals import dof_factor, normal_bounds
@@ -207,6 +206,8 @@ class Arima:
             n_trend = 1  # statsmodels' default adds a constant to models without integration
         need = minimum_length(order, seasonal, n_trend, n_exog)
         need_length(y.shape[0], need, "arima", f"order {list(order)} seasonal {list(seasonal)}")
+        from statsmodels.tsa.arima.model import ARIMA  # here: validating needs no statsmodels
+
         with quiet():
             model = ARIMA(y, exog=exog, order=order, seasonal_order=seasonal, trend=self.trend)
             # More room than statsmodels' 50 iterations: a fit that converges within 50 is

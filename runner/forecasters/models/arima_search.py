@@ -43,9 +43,6 @@ from __future__ import annotations
 from typing import Any
 
 import numpy as np
-from statsmodels.tsa.arima.model import ARIMA
-from statsmodels.tsa.seasonal import STL
-from statsmodels.tsa.stattools import kpss
 
 from runner.forecasters.contract import Forecast
 from runner.forecasters.models._common import (
@@ -70,6 +67,8 @@ Candidate = tuple[int, int, int, int, bool]  # p, q, P, Q, constant
 
 def seasonal_strength(x: np.ndarray, m: int) -> float:
     """``max(0, 1 - Var(remainder) / Var(seasonal + remainder))`` from an STL decomposition."""
+    from statsmodels.tsa.seasonal import STL  # here: validating needs no statsmodels
+
     with quiet():
         fit = STL(x, period=m).fit()
     rem = np.asarray(fit.resid)
@@ -89,6 +88,8 @@ def choose_seasonal_d(x: np.ndarray, m: int, D_up_to: int) -> int:
 
 def choose_d(x: np.ndarray, d_up_to: int, alpha: float) -> int:
     """Difference while the KPSS test (level stationarity, short lag) rejects at ``alpha``."""
+    from statsmodels.tsa.stattools import kpss  # here: see seasonal_strength
+
     d = 0
     while d < d_up_to and x.shape[0] >= MIN_LENGTH and np.ptp(x) > 0:
         lags = int(4 * (x.shape[0] / 100.0) ** 0.25)
@@ -191,6 +192,8 @@ class ArimaSearch:
         season = season_length(season, "arima_search")
         n = y.shape[0]
         need_length(n, MIN_LENGTH, "arima_search", "the automatic order search")
+        from statsmodels.tsa.arima.model import ARIMA  # here: validating needs no statsmodels
+
         exog = covariate_matrix(covariates, n, "arima_search", "training")
         m = season if self.seasonal and season > 1 else 1
 

@@ -22,11 +22,12 @@ that it is the optimum rather than wherever the optimiser happened to stop.
 from __future__ import annotations
 
 from collections.abc import Callable
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
-import pandas as pd
-from statsmodels.tsa.exponential_smoothing.ets import ETSModel
+
+if TYPE_CHECKING:  # statsmodels is imported where a model is fitted
+    from statsmodels.tsa.exponential_smoothing.ets import ETSModel
 
 from runner.forecasters.contract import Forecast
 from runner.forecasters.intervals import dof_factor, normal_bounds
@@ -137,6 +138,9 @@ class ETS:
         need_length(y.shape[0], self._minimum_length(season), "ets", "this model")
         # A Series with a RangeIndex, not an ndarray: statsmodels' get_prediction (intervals)
         # fails on ndarray input (it reads `.index` of the predicted mean).
+        import pandas as pd
+        from statsmodels.tsa.exponential_smoothing.ets import ETSModel  # here: see arima.py
+
         endog = pd.Series(y, copy=False)
         with quiet():
             res = self._maximum_likelihood(lambda: ETSModel(

@@ -29,7 +29,6 @@ from __future__ import annotations
 from typing import Any
 
 import numpy as np
-from statsmodels.tsa.forecasting.theta import ThetaModel
 
 from runner.forecasters.contract import Forecast
 from runner.forecasters.intervals import dof_factor, normal_bounds
@@ -121,6 +120,8 @@ class Theta:
                     "theta: method 'multiplicative' needs strictly positive values; the training "
                     "series has values <= 0"
                 )
+        from statsmodels.tsa.forecasting.theta import ThetaModel  # here: see arima.py
+
         with quiet():
             res = ThetaModel(
                 y,
