@@ -86,7 +86,7 @@ def panel_spec(name: str, entry: str, **params) -> dict:
 
 def write_config(tmp: Path, models: list[dict], *, frame: pd.DataFrame | None = None,
                  windows: dict | None = None, execution: dict | None = None,
-                 name: str = "c") -> Path:
+                 name: str = "c", missing: str = "error") -> Path:
     frame = seatbelts() if frame is None else frame
     out = frame.assign(month=frame["month"].dt.strftime("%Y-%m-%d"))
     out.to_csv(tmp / f"{name}.csv", index=False)
@@ -96,7 +96,7 @@ def write_config(tmp: Path, models: list[dict], *, frame: pd.DataFrame | None = 
         "season": 12,
         "datasets": [{"name": "roads", "path": f"{name}.csv", "series": "road", "time": "month",
                       "target": "deaths", "frequency": "MS", "covariates": ["law"],
-                      "attributes": ["seat"]}],
+                      "attributes": ["seat"], "missing": missing}],
         "windows": windows or {"scheme": "expanding", "train": 48, "step": 12, "folds": 6},
         "baselines": ["seasonal_naive"],
         "models": models,
@@ -183,6 +183,55 @@ def forecasts_by_origin(cfg: Path) -> list[np.ndarray]:
         out = [run_task(t, shared) for t in build_panel_tasks(plan, len(tasks))]
     assert all(o.ok for o in out), [o.message for o in out]
     return [o.point for o in out]
+
+
+def test_gaps_are_filled_from_each_series_history_alone(tmp_path):
+    """With ``missing: interpolate`` the gaps stay in the data; each origin's history fills them
+    from the rows up to the origin only. Reference: pandas' own linear interpolation inside the
+    history, then the last observed value carried forward (and the first one backward)."""
+    frame = seatbelts()
+    front = frame["road"] == "front"
+    blank = front & frame["month"].isin(pd.to_datetime(["1980-10-01", "1980-12-01"]))
+    frame.loc[blank, "deaths"] = np.nan  # December 1980 is an origin: its last value is a gap
+    frame.loc[(frame["road"] == "rear") & (frame["month"] == "1979-06-01"), "deaths"] = np.nan
+    cfg = write_config(tmp_path, [panel_spec("spy", "panel_plugins:Spy")], frame=frame,
+                       missing="interpolate")
+    plan, spy = result_of(runner.run(cfg, write=False), "spy")
+    assert not spy.failed.any()
+    full = frame.set_index(["road", "month"])["deaths"].unstack(0).asfreq("MS")
+    seen_at = []
+    for k, label in enumerate(ORIGINS):
+        seen = spy.info[fold_rows(plan, k)[0]]
+        counts = np.diff(seen["offsets"])
+        got = pd.Series(seen["values"], index=pd.MultiIndex.from_arrays(
+            [np.repeat(seen["keys"], counts), pd.to_datetime(seen["times"])]))
+        for road in seen["keys"]:
+            window = full.loc[SPANS[road][0]:min(label, SPANS[road][1]), road]
+            want = window.interpolate(limit_area="inside").ffill().bfill()
+            np.testing.assert_allclose(got.loc[road].to_numpy(), want.to_numpy(), rtol=1e-12)
+        seen_at.append(got)
+    nov, jan = full.loc["1980-11-01", "front"], full.loc["1981-01-01", "front"]
+    dec = ("front", pd.Timestamp("1980-12-01"))
+    assert seen_at[2].loc[dec] == nov  # at its own origin the gap takes the last value before
+    assert seen_at[3].loc[dec] == pytest.approx((nov + jan) / 2)  # a year on: between the two
+
+
+def test_a_target_whose_window_is_all_missing_fails_as_too_short(tmp_path):
+    # rear's 48 months up to December 1980 blanked; sliding windows of 48: at that origin rear
+    # is neither in the history nor asked for, and its task fails as too short, alone
+    frame = seatbelts()
+    gone = (frame["road"] == "rear") & frame["month"].between("1977-01-01", "1980-12-01")
+    frame.loc[gone, "deaths"] = np.nan
+    windows = {"scheme": "sliding", "train": 48, "step": 12, "folds": 6}
+    cfg = write_config(tmp_path, [panel_spec("spy", "panel_plugins:Spy")], frame=frame,
+                       missing="interpolate", windows=windows)
+    plan, spy = result_of(runner.run(cfg, write=False), "spy")
+    rear = plan.panel.keys.index("rear")
+    bad = (plan.series == rear) & (plan.fold == 2)
+    assert (spy.failed == bad).all()
+    assert [spy.reason[t] for t in np.flatnonzero(bad)] == ["too-short"]
+    seen = spy.info[fold_rows(plan, 2)[0]]
+    assert seen["keys"] == ["DriversKilled", "VanKilled", "front"]  # Van: 12 months so far
 
 
 def test_changing_any_value_after_an_origin_changes_no_forecast_made_at_it(tmp_path):

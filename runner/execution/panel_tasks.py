@@ -31,10 +31,13 @@ import numpy as np
 from runner.execution.engines import not_run
 from runner.execution.tasks import SharedData, TaskOutcome, error_outcome, failed
 from runner.forecasters.contract import PanelHistory, as_panel_forecast, bad_rows
+from runner.forecasters.gaps import SliceFill
 
 if TYPE_CHECKING:
     from runner.windows.plan import Plan
 
+#: The message of a series whose training window holds no observed value (as per series).
+NO_OBSERVED_MESSAGE = "the training slice has no observed value (every one is missing)"
 #: The message of a series whose row of a panel forecast is NaN or infinite.
 BAD_ROW_MESSAGE = "the panel forecaster returned NaN or infinite forecasts for this series"
 
@@ -144,13 +147,20 @@ def panel_inputs(
     covariates: np.ndarray | None,
     fold: int,
     steps: int,
-) -> tuple[PanelHistory, np.ndarray, np.ndarray | None]:
+) -> tuple[PanelHistory, np.ndarray, np.ndarray | None, np.ndarray]:
     """What a panel forecaster is given at origin ``fold``: the history record for ``fit``, and
-    the ``series`` and forecast-period ``covariates`` for ``predict`` (``steps`` rows each).
+    the ``series`` and forecast-period ``covariates`` for ``predict`` (``steps`` rows each),
+    plus which of the fold's targets are requested (a boolean mask over
+    :meth:`PanelLayout.fold_targets`).
 
-    Pass ``covariates=None`` for a forecaster that is not given covariates. Every array is a
-    fresh copy, so a forecaster that writes into its input cannot damage the run's data.
+    Missing values (a dataset read with ``missing: interpolate`` keeps them) are filled series
+    by series from the rows selected here alone (:mod:`runner.forecasters.gaps`), so no value
+    after the origin fills a gap before it. A series with no observed value in its window is
+    left out of the record; if it is a target it is not requested (its task fails as too
+    short). Pass ``covariates=None`` for a forecaster that is not given covariates. Every array
+    is a fresh copy, so a forecaster that writes into its input cannot damage the run's data.
     """
+    n = len(layout.keys)
     o = int(layout.origins[fold])
     pos = layout.positions
     keep = pos <= o
@@ -158,24 +168,37 @@ def panel_inputs(
         keep &= pos > o - layout.window
     rows = np.flatnonzero(keep)
     owner = np.searchsorted(layout.offsets, rows, side="right") - 1
-    counts = np.bincount(owner, minlength=len(layout.keys))
-    present = np.flatnonzero(counts)
+    # each series' selected rows are contiguous: [lo, hi) in the flat arrays
+    counts = np.bincount(owner, minlength=n)
+    bounds = np.concatenate([[0], np.cumsum(counts)])
+    some = counts > 0
+    lo = np.zeros(n, dtype=np.int64)
+    hi = np.zeros(n, dtype=np.int64)
+    lo[some] = rows[bounds[:-1][some]]
+    hi[some] = rows[bounds[1:][some] - 1] + 1
+    filled = SliceFill(values).take(rows, lo[owner], hi[owner])
+    seen = np.bincount(owner[~np.isnan(filled)], minlength=n) > 0
+    mask = seen[owner]
+    rows, owner, filled = rows[mask], owner[mask], filled[mask]
+    present = np.flatnonzero(seen)
     offsets = np.zeros(len(present) + 1, dtype=np.int64)
-    np.cumsum(counts[present], out=offsets[1:])
-    where = np.full(len(layout.keys), -1, dtype=np.int64)
+    np.cumsum(np.bincount(owner, minlength=n)[present], out=offsets[1:])
+    where = np.full(n, -1, dtype=np.int64)
     where[present] = np.arange(len(present), dtype=np.int64)
     targets = layout.fold_targets(fold)
-    series = where[targets]
+    requested = seen[targets]
+    asked = targets[requested]
+    series = where[asked]
     # the flat row of each target's origin; its forecast period follows it
     at_origin = layout.offsets[targets] + (o - layout.first[targets])
     cov = None if covariates is None else np.array(covariates[rows], dtype=np.float64)
     future = None
     if covariates is not None:
-        future = np.array(covariates[at_origin[:, None] + np.arange(1, steps + 1)[None, :]],
-                          dtype=np.float64)
+        ahead = at_origin[requested][:, None] + np.arange(1, steps + 1)[None, :]
+        future = np.array(covariates[ahead], dtype=np.float64)
     names = layout.covariate_names if cov is not None else ()
     history = PanelHistory(
-        values=np.array(values[rows], dtype=np.float64),
+        values=filled,
         offsets=offsets,
         keys=tuple(layout.keys[i] for i in present),
         positions=pos[rows].copy(),
@@ -189,7 +212,7 @@ def panel_inputs(
         season=layout.season,
         frequency=layout.frequency,
     )
-    return history, series, future
+    return history, series, future, requested
 
 
 def _static(cov: np.ndarray | None, offsets: np.ndarray, names: tuple[str, ...]
@@ -219,12 +242,19 @@ def run_panel_task(task: PanelTask, shared: SharedData) -> TaskOutcome:
     spec = shared.forecasters[task.forecaster]
     layout = shared.panels[task.dataset]
     steps = layout.gap + shared.horizon
+    n, h = panel_rows(task, shared), shared.horizon
+    point = np.full((n, h), np.nan)
+    lower = np.full((len(shared.levels), n, h), np.nan)
+    upper = np.full((len(shared.levels), n, h), np.nan)
+    info: dict[str, Any] = {}
     try:
         model = build(spec)
         cov = shared.covariates[task.dataset] if accepts_covariates(spec) else None
-        history, series, future = panel_inputs(
+        history, series, future, requested = panel_inputs(
             layout, shared.values[task.dataset], cov, task.fold, steps
         )
+        if not requested.any():  # every target's window is missing: nothing to forecast
+            return TaskOutcome(task.index, point, lower, upper, seconds=time.perf_counter() - t0)
         fitted = model.fit(history)
         if fitted is None:
             fitted = model
@@ -238,16 +268,14 @@ def run_panel_task(task: PanelTask, shared: SharedData) -> TaskOutcome:
         fc = as_panel_forecast(raw, len(series), steps, shared.levels)
     except ValueError as exc:
         return failed(task.index, "invalid-output", str(exc), time.perf_counter() - t0)
-    n, h = len(series), shared.horizon
     scored = slice(steps - h, steps)  # the gap's steps are not scored
-    lower = np.full((len(shared.levels), n, h), np.nan)
-    upper = np.full((len(shared.levels), n, h), np.nan)
     for i, level in enumerate(shared.levels):
         if level in fc.lower and level in fc.upper:
-            lower[i] = fc.lower[level][:, scored]
-            upper[i] = fc.upper[level][:, scored]
-    point = np.ascontiguousarray(fc.point[:, scored])
-    point[bad_rows(fc)] = np.nan  # a row with any non-finite step fails its series
+            lower[i, requested] = fc.lower[level][:, scored]
+            upper[i, requested] = fc.upper[level][:, scored]
+    got = fc.point[:, scored].copy()
+    got[bad_rows(fc)] = np.nan  # a row with any non-finite step fails its series
+    point[requested] = got
     info = dict(getattr(fitted, "info_", None) or {})
     return TaskOutcome(task.index, point, lower, upper, info=info,
                        seconds=time.perf_counter() - t0)
@@ -276,7 +304,8 @@ def panel_results(
 
     A failed origin (an exception, a wrong shape, a timeout, a crash, not run) fails the task
     of every series at that origin with its reason and message; a NaN row fails its series
-    only (reason ``invalid-output``).
+    only (reason ``invalid-output``), and a series whose training window has no observed value
+    (never asked for) fails as ``too-short``, as its per-series task would.
     """
     h, n_levels = shared.horizon, len(shared.levels)
     by_index = {o.index: o for o in outcomes}
@@ -295,6 +324,9 @@ def panel_results(
         o = by_index.get(task.index) or not_run(task.index)
         for j, t in enumerate(rows):
             res.info[t] = o.info
+            if not np.any(~np.isnan(dp.panel.values[dp.starts[t] : dp.ends[t]])):
+                res.reason[t], res.message[t] = "too-short", NO_OBSERVED_MESSAGE
+                continue
             if not o.ok:
                 res.reason[t], res.message[t] = o.reason, o.message
                 continue

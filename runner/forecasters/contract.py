@@ -173,7 +173,9 @@ class PanelHistory:
     oldest first, named ``keys[i]``. ``positions``, ``times`` and the rows of ``covariates``
     line up with ``values``.
 
-    * ``values``: float64 target values, no missing values.
+    * ``values``: float64 target values, no missing values: with ``missing: interpolate`` the
+      gaps of each series are filled from that series' rows in this record alone (linear
+      between two observed values, else the nearest observed one), as for per-series models.
     * ``offsets``: int64, ``n_series + 1`` entries, starting at 0.
     * ``keys``: the series names (as in the results), in the dataset's order.
     * ``positions``: int64 position of each value on the dataset's time axis (0 is the
@@ -194,7 +196,7 @@ class PanelHistory:
     * ``season``: the dataset's season length (1 when there is none).
     * ``frequency``: the dataset's pandas offset alias (None for whole-number times).
 
-    The record holds every series with at least one observation in the training window at
+    The record holds every series with at least one observed value in the training window at
     the origin (from its first observation with ``expanding`` windows; the last ``train``
     positions up to the origin with ``sliding`` ones); a series that starts after the origin
     is not in it, not even by name. The arrays are fresh copies made for this fit.

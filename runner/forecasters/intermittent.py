@@ -174,7 +174,7 @@ class Croston(_Baseline):
     def _factor(self) -> float:
         return 1.0
 
-    def _point_and_sigma(self, values, starts, ends, horizon, season, s):
+    def _point_and_sigma(self, values, starts, ends, horizon, season, s, with_sigma=True):
         z, p = croston_state(values, starts, ends, float(self.alpha), float(self.beta))
         level = self._factor() * (z / p)
         return np.repeat(level[:, None], horizon, axis=1), None
@@ -214,7 +214,7 @@ class TSB(_Baseline):
         self.alpha = alpha
         self.beta = beta
 
-    def _point_and_sigma(self, values, starts, ends, horizon, season, s):
+    def _point_and_sigma(self, values, starts, ends, horizon, season, s, with_sigma=True):
         d, z = tsb_state(values, starts, ends, float(self.alpha), float(self.beta))
         return np.repeat((d * z)[:, None], horizon, axis=1), None
 

@@ -177,7 +177,10 @@ class ETS:
         usable = [r for r in fits if np.isfinite(r.llf)
                   and (r.mle_retvals or {}).get("converged", True) is not False]
         if not usable:
-            return fits[0]  # check_converged reports it
+            # The tight tolerances can end L-BFGS-B's line search before it reports
+            # convergence (seen on multiplicative models); statsmodels' own tolerances then
+            # decide, and check_converged judges that fit as before.
+            return make_model().fit(disp=False, maxiter=FIT_OPTIONS["maxiter"])
         top = max(r.llf for r in usable)
         best = next(r for r in usable if r.llf >= top - 1e-9 * abs(top))
         again = make_model().fit(start_params=np.asarray(best.params, dtype=float), disp=False,
