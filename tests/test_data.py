@@ -423,3 +423,16 @@ def test_fill_notices_are_capped(tmp_path: Path) -> None:
     panel = load_panel(_long("n.csv", time="t", missing="zero"), tmp_path, 1)
     assert len(panel.notes) == 11 and panel.notes[0] == 'series "s00": 1 missing value(s) set to 0'
     assert panel.notes[-1] == "... and 2 missing value(s) set to 0 in 2 more series"
+
+
+def test_docstring_examples_of_the_data_layer_hold() -> None:
+    # The helpers the recorded-forecasts reader shares with the loader show their use in
+    # their docstrings; the examples must keep running as written.
+    import doctest
+
+    import runner.data.columns
+    import runner.data.messages
+
+    for module in (runner.data.columns, runner.data.messages):
+        failed, tried = doctest.testmod(module)
+        assert tried >= 1 and failed == 0, module.__name__

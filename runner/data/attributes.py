@@ -16,7 +16,7 @@ column, which is read from the data file. An empty cell is an error: every serie
 value of every attribute.
 
 The data file is read a second time, for the key and attribute columns only, so that the
-panel loader (:mod:`runner.data.panel`) stays as it is; keys are built as the loader builds
+panel loader (:mod:`runner.data.load`) stays as it is; keys are built as the loader builds
 them (text of each key column, several columns joined with ``/``), and every series of the
 panel must be found.
 

@@ -45,7 +45,10 @@ import pandas as pd
 
 from runner.config import Config, DatasetConfig, ForecasterSpec
 from runner.data import Panel
-from runner.data.panel import MISSING_TOKENS, _reason, _Source, _time_text, _to_datetime
+from runner.data.columns import parse_datetimes
+from runner.data.files import MISSING_TOKENS
+from runner.data.messages import read_error_text
+from runner.data.panel import time_text
 from runner.errors import ConfigError, DataError
 from runner.forecasters.registry import is_from_file
 from runner.windows.axis import TimeAxis, time_axis
@@ -291,8 +294,8 @@ def read_recorded(
             i = int(early[0])
             raise where.fail(
                 i, cols.time,
-                f"the forecast for {_time_text(time_t[i], is_date)} is dated at or before its "
-                f'origin {_time_text(origin_t[i], is_date)} (column "{cols.origin}"); a '
+                f"the forecast for {time_text(time_t[i], is_date)} is dated at or before its "
+                f'origin {time_text(origin_t[i], is_date)} (column "{cols.origin}"); a '
                 "forecast must be for a time after the origin it was made at",
             )
     else:
@@ -345,7 +348,7 @@ def _read_frame(path: Path, label: str, cols: Columns, kind: str) -> pd.DataFram
     except pd.errors.EmptyDataError:
         raise DataError(f"{label}: the file is empty") from None
     except Exception as exc:  # any reader failure at this boundary is a bad file
-        raise DataError(f"{label}: cannot read file ({_reason(exc)})") from None
+        raise DataError(f"{label}: cannot read file ({read_error_text(exc)})") from None
     shown = ", ".join(header[:20]) + (f", ... ({len(header)} columns)" if len(header) > 20 else "")
     for col, param in cols.all():
         if col not in header:
@@ -367,7 +370,7 @@ def _read_frame(path: Path, label: str, cols: Columns, kind: str) -> pd.DataFram
                 skip_blank_lines=False, low_memory=False,
             )
     except Exception as exc:  # malformed rows, truncated gzip, damaged parquet, bad encoding
-        raise DataError(f"{label}: cannot read file ({_reason(exc)})") from None
+        raise DataError(f"{label}: cannot read file ({read_error_text(exc)})") from None
     if kind == "csv" and len(frame):
         # blank lines at the end of a file are no rows; a blank line inside it is one (an error)
         blank = (frame.isna() | (frame == "")).all(axis=1).to_numpy()
@@ -441,7 +444,7 @@ def _times(
         idx = pd.DatetimeIndex(col)
     else:
         codes, uniques = pd.factorize(col)
-        parsed = _to_datetime(pd.Index(uniques), name, _Source(where.label, wide=False))
+        parsed = parse_datetimes(pd.Index(uniques), where.label, name)
         bad = parsed.isna()
         if bad.any():
             i = int(np.argmax(bad[codes]))
@@ -509,11 +512,11 @@ def _reject_duplicates(
     i = int(np.argmax(same))
     names = ", ".join(f'"{c}"' for c in (*cols.keys, cols.origin, cols.time or cols.step))
     series_text = "/".join(str(frame[c].iat[j]) for c in cols.keys)
-    what = (f"for {_time_text(when[j], is_date)}" if cols.time is not None
+    what = (f"for {time_text(when[j], is_date)}" if cols.time is not None
             else f"for step {when[j]}")
     raise DataError(
         f"{where.label}: {where.row(j)}, columns {names}: a second forecast of series "
-        f'"{series_text}" made at {_time_text(origin[j], is_date)} {what} (the first is on '
+        f'"{series_text}" made at {time_text(origin[j], is_date)} {what} (the first is on '
         f"{where.row(i)})"
     )
 
@@ -551,7 +554,7 @@ def _positions(
         step = f"frequency {panel.frequency}" if panel.frequency else f"step {axis.unit}"
         raise where.fail(
             i, name,
-            f"{_time_text(t[i], axis.is_date)} is not on the time grid of dataset "
+            f"{time_text(t[i], axis.is_date)} is not on the time grid of dataset "
             f"{panel.name!r} ({step}, first time {axis.time_text(0)})",
         )
     return pos.astype(np.int64)
