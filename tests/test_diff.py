@@ -14,7 +14,8 @@ from pathlib import Path
 import pytest
 
 from runner.cli import main
-from runner.compare.diff import Results, compare, format_diff, relative_change, worsening
+from runner.compare.diff import Results, compare, relative_change, worsening
+from runner.compare.diff_text import format_diff
 from runner.errors import DataError
 
 HEADER = ("dataset,rank,forecaster,kind,role,series,folds,tasks,failed,mae_mean,mae_sd,"
@@ -133,7 +134,9 @@ def test_markdown_output(pair: tuple[Path, Path], capsys: pytest.CaptureFixture[
     table = [line for line in out.splitlines() if line.startswith("|")]
     assert table[0].startswith("| rank | forecaster | role | mase old | mase new |")
     assert table[1].startswith("|---:|---|---|---:|---:|")
-    assert any("| 1 -> 2 | arima | candidate | 0.8 | 0.88 |" in line for line in table)
+    # one number of decimals for the metric, from its scale (runner.output.numbers)
+    assert any("| 1 -> 2 | arima | candidate | 0.8000 | 0.8800 | 0.0800 | +10.00% |" in line
+               for line in table)
     assert all(line.endswith("|") for line in table)
 
 

@@ -131,7 +131,8 @@ def test_appending_a_full_test_block_adds_exactly_one_origin(tmp_path):
     counts = warm.evaluation.counts
     assert (counts.computed, counts.cached) == (REGIONS, REGIONS * len(old))
     # castgrid diff names the new origin by its time
-    from runner.compare.diff import Results, compare, format_diff
+    from runner.compare.diff import Results, compare
+    from runner.compare.diff_text import format_diff
 
     text = format_diff(compare(Results.load(str(tmp_path / "a" / "out")),
                                Results.load(str(tmp_path / "b" / "out"))))

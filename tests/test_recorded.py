@@ -28,7 +28,8 @@ from scipy.stats import norm
 
 import runner
 from runner.cli import main
-from runner.compare.diff import Results, compare, format_diff
+from runner.compare.diff import Results, compare
+from runner.compare.diff_text import format_diff
 from runner.errors import ConfigError, DataError
 from runner.execution.model_tasks import build_model_tasks
 from runner.pipeline import prepare

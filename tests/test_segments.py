@@ -665,7 +665,8 @@ OLD_SEGMENTS = [
 
 
 def test_diff_shows_the_segment_rows_that_changed(tmp_path: Path):
-    from runner.compare.diff import Results, compare, format_diff
+    from runner.compare.diff import Results, compare
+    from runner.compare.diff_text import format_diff
 
     new = [
         ("format", "kiosk", "arima", 1, 4, 0.9, True),  # now wins on kiosks
@@ -689,14 +690,16 @@ def test_diff_shows_the_segment_rows_that_changed(tmp_path: Path):
     text = format_diff(d)
     assert "segments that changed (4 of 6 rows of leaderboard_segments.csv):" in text
     line = next(x for x in text.splitlines() if "kiosk" in x and "arima" in x)
-    assert line.split() == ["format", "kiosk", "arima", "4", "2", "->", "1", "1.1", "0.9",
+    # the rank metric with one number of decimals for all segment rows (runner.output.numbers)
+    assert line.split() == ["format", "kiosk", "arima", "4", "2", "->", "1", "1.100", "0.900",
                             "-18.18%", "no", "->", "yes", "better"]
     assert text.rstrip().endswith("4 segment row(s) changed")
     assert "| format | cafe | arima | - -> 2 | - -> 1 |" in format_diff(d, markdown=True)
 
 
 def test_diff_of_unchanged_segments_and_of_one_sided_ones(tmp_path: Path):
-    from runner.compare.diff import Results, compare, format_diff
+    from runner.compare.diff import Results, compare
+    from runner.compare.diff_text import format_diff
 
     same = compare(Results.load(str(_results(tmp_path / "a", OLD_SEGMENTS))),
                    Results.load(str(_results(tmp_path / "b", OLD_SEGMENTS))))

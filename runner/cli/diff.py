@@ -5,7 +5,8 @@ from __future__ import annotations
 import argparse
 import math
 
-from runner.compare.diff import EXIT_WORSE, Results, compare, format_diff, percent_text
+from runner.compare.diff import EXIT_WORSE, Results, compare
+from runner.compare.diff_text import format_change_percent, format_diff
 from runner.errors import DataError
 
 
@@ -31,7 +32,7 @@ def main(args: argparse.Namespace) -> int:
         return 0
     worse = d.worse_than(pct)
     if worse:
-        listed = ", ".join(f"{name} on {ds} ({percent_text(w)})" for ds, name, w in worse)
+        listed = ", ".join(f"{name} on {ds} ({format_change_percent(w)})" for ds, name, w in worse)
         print(f"\nworse by more than {pct:g}% in {d.rank_by}: {listed}")
         return EXIT_WORSE
     return 0

@@ -1,10 +1,12 @@
 """``castgrid diff OLD NEW``: what changed between two evaluations, and whether it is the model.
 
-For every dataset it lists forecasters added and gone, rank changes, each metric's change
-(absolute and relative), and whether the config, the data, the library versions or the platform
-(CPU, BLAS library and kernel) changed, so a better score can be told apart from different data
-or a different machine. ``--fail-if-worse PCT`` makes the command a gate: exit code 4 when a
-candidate's rank metric got worse by more than PCT percent.
+This module computes the comparison (:func:`compare` builds a :class:`Diff`);
+:mod:`runner.compare.diff_text` prints it. For every dataset the comparison holds forecasters
+added and gone, rank changes, each metric's change (absolute and relative), and whether the
+config, the data, the library versions or the platform (CPU, BLAS library and kernel) changed,
+so a better score can be told apart from different data or a different machine.
+:meth:`Diff.worse_than` backs ``--fail-if-worse PCT``, which makes the command a gate: exit
+code 4 when a candidate's rank metric got worse by more than PCT percent.
 
 A change of a score within its numerical tolerance
 (:func:`runner.scoring.metrics.noise_tolerance`: 0.1% of the value, one interval hit per fold
@@ -17,7 +19,6 @@ OLD and NEW are results folders or ``REV:path`` read from git (see :mod:`runner.
 from __future__ import annotations
 
 import math
-import re
 from dataclasses import dataclass, field
 from typing import TYPE_CHECKING, Any
 
@@ -35,54 +36,6 @@ if TYPE_CHECKING:
 
 #: Exit code when a candidate got worse than --fail-if-worse allows.
 EXIT_WORSE = 4
-_NUMERIC = re.compile(r"^[+-]?(\d+(\.\d*)?|\.\d+)([eE][+-]?\d+)?%?$|^-$|^$|^nan$")
-
-
-# ------------------------------------------------------------------------------ text tables
-
-
-def _numeric(cell: str) -> bool:
-    """A number, a percentage, '-' or 'a -> b' of those: right-aligned in a table."""
-    return all(_NUMERIC.match(part.strip()) for part in cell.split(" -> "))
-
-
-def render_table(header: list[str], rows: list[list[Any]], markdown: bool = False,
-                 indent: str = "") -> str:
-    """A plain-text table (columns padded, numbers right-aligned) or a Markdown table."""
-    cells = [[str(c) for c in header]] + [["" if c is None else str(c) for c in r] for r in rows]
-    ncol = len(header)
-    right = [
-        len(cells) > 1 and all(_numeric(r[i]) for r in cells[1:]) for i in range(ncol)
-    ]
-    if markdown:
-        esc = [[c.replace("|", "\\|") for c in r] for r in cells]
-        lines = ["| " + " | ".join(esc[0]) + " |",
-                 "|" + "|".join("---:" if right[i] else "---" for i in range(ncol)) + "|"]
-        lines += ["| " + " | ".join(r) + " |" for r in esc[1:]]
-        return "\n".join(indent + line for line in lines)
-    widths = [max(len(r[i]) for r in cells) for i in range(ncol)]
-
-    def line(r: list[str]) -> str:
-        parts = [r[i].rjust(widths[i]) if right[i] else r[i].ljust(widths[i])
-                 for i in range(ncol)]
-        return (indent + "  ".join(parts)).rstrip()
-
-    rule = indent + "  ".join("-" * w for w in widths)
-    return "\n".join([line(cells[0]), rule] + [line(r) for r in cells[1:]])
-
-
-def _num(v: float | None) -> str:
-    if v is None or not math.isfinite(v):
-        return "-"
-    return format(v, ".6g")
-
-
-def percent_text(v: float | None) -> str:
-    if v is None or math.isnan(v):
-        return "-"
-    if math.isinf(v):
-        return "+inf%" if v > 0 else "-inf%"
-    return f"{v:+.2f}%"
 
 
 # ------------------------------------------------------------------------------ the comparison
@@ -151,7 +104,8 @@ def worsening(metric: str, old: float, new: float) -> float:
     return relative_change(old, new)
 
 
-def _same(a: Any, b: Any) -> bool:
+def same_score(a: Any, b: Any) -> bool:
+    """Whether two scores are equal (two NaNs, two missing scores, are the same)."""
     if isinstance(a, float) and isinstance(b, float):
         return (math.isnan(a) and math.isnan(b)) or a == b
     return a == b
@@ -187,7 +141,7 @@ class ForecasterChange:
 
     def differs(self, metric: str) -> bool:
         """Whether ``metric`` differs at all between old and new."""
-        return not _same(*self.values.get(metric, (math.nan, math.nan)))
+        return not same_score(*self.values.get(metric, (math.nan, math.nan)))
 
     def within_tolerance(self, metric: str) -> bool:
         """Whether ``metric`` differs, but by no more than its numerical tolerance."""
@@ -216,7 +170,7 @@ class SegmentChange:
     def changed(self) -> bool:
         """Whether the row differs between the two folders."""
         return (self.rank[0] != self.rank[1] or self.beats[0] != self.beats[1]
-                or not _same(*self.series) or not _same(*self.value))
+                or not same_score(*self.series) or not same_score(*self.value))
 
 
 @dataclass
@@ -254,7 +208,7 @@ class DatasetDiff:
         if self.reference[0] != self.reference[1]:
             return True
         for f in self.forecasters:
-            if not (f.in_old and f.in_new) or not _same(*f.failed):
+            if not (f.in_old and f.in_new) or not same_score(*f.failed):
                 return True
             if f.old_rank != f.new_rank and rank_by is None:
                 return True
@@ -367,7 +321,8 @@ def _origins_text(origins: Any) -> str:
     return f"{count} ({first} to {last})" if count != 1 else f"1 ({first})"
 
 
-def _platform_text(blas: list[dict[str, Any]]) -> str:
+def platform_text(blas: list[dict[str, Any]]) -> str:
+    """The BLAS libraries of a manifest's platform on one line: ``openblas 0.3.31 Haswell``."""
     return ", ".join(f"{b.get('library', '?')} {b.get('version', '?')} {b.get('kernel', '?')}"
                      for b in blas) or "none"
 
@@ -386,7 +341,7 @@ def platform_changes(old: dict[str, Any], new: dict[str, Any]) -> list[str]:
     for key in ("machine", "system", "cpu"):
         if po.get(key) != pn.get(key):
             out.append(f"{key} {po.get(key, '-')} -> {pn.get(key, '-')}")
-    bo, bn = _platform_text(po.get("blas") or []), _platform_text(pn.get("blas") or [])
+    bo, bn = platform_text(po.get("blas") or []), platform_text(pn.get("blas") or [])
     if bo != bn:
         out.append(f"BLAS {bo} -> {bn}")
     return out
@@ -496,215 +451,3 @@ def _failed(row: dict[str, Any] | None) -> float:
 def _rank(v: Any) -> float | None:
     v = float(v)
     return v if math.isfinite(v) else None
-
-
-# ------------------------------------------------------------------------------ formatting
-
-
-def _rank_text(old: float | None, new: float | None) -> str:
-    a = "-" if old is None else f"{old:g}"
-    b = "-" if new is None else f"{new:g}"
-    return a if a == b else f"{a} -> {b}"
-
-
-def _failed_text(old: float, new: float) -> str:
-    a = "-" if math.isnan(old) else f"{old:g}"
-    b = "-" if math.isnan(new) else f"{new:g}"
-    return a if a == b else f"{a} -> {b}"
-
-
-def _verdict(metric: str, old: float, new: float, noise: bool = False) -> str:
-    if math.isnan(old) and math.isnan(new):
-        return ""
-    if math.isnan(old):
-        return "new"
-    if _same(old, new):
-        return "same"
-    if noise:
-        return "within tolerance"
-    w = worsening(metric, old, new)
-    return "worse" if w > 0 else "better" if w < 0 else "same"
-
-
-def _header(d: Diff, markdown: bool) -> list[str]:
-    om, nm = d.old.manifest, d.new.manifest
-    out = [
-        f"old: {d.old.folder.label} (experiment {om['experiment']}, "
-        f"config {om['config_hash'][:12]})",
-        f"new: {d.new.folder.label} (experiment {nm['experiment']}, "
-        f"config {nm['config_hash'][:12]})",
-    ]
-    if d.config_changed:
-        shown = ", ".join(d.config_changes[:8]) or "details not in the manifests"
-        more = f" and {len(d.config_changes) - 8} more" if len(d.config_changes) > 8 else ""
-        out.append(f"config: changed ({shown}{more})")
-    else:
-        out.append("config: unchanged")
-    out.append("versions: " + ("changed (" + ", ".join(d.version_changes) + ")"
-                               if d.version_changes else "unchanged"))
-    if d.platform_changes:
-        out.append("platform: changed (" + "; ".join(d.platform_changes) + "): scores may "
-                   "differ within the numerical tolerance")
-    elif "platform" in nm:
-        out.append(f"platform: unchanged ({nm['platform'].get('machine', '?')}, BLAS "
-                   f"{_platform_text(nm['platform'].get('blas') or [])})")
-    else:
-        out.append("platform: not recorded")
-    if om["rank_by"] != nm["rank_by"]:
-        out.append(f"rank metric: {nm['rank_by']} (was {om['rank_by']}; ranks are not "
-                   "comparable)")
-    else:
-        out.append(f"rank metric: {nm['rank_by']}")
-    return [f"- {line}" for line in out] if markdown else out
-
-
-def format_diff(d: Diff, markdown: bool = False, fail_pct: float | None = None) -> str:
-    """The comparison as readable text, or as Markdown for a review comment."""
-    lines = (["### castgrid diff", ""] if markdown else []) + _header(d, markdown)
-    m = d.rank_by
-    bullet = "- " if markdown else "  "
-    for ds in d.datasets:
-        lines.append("")
-        lines.append(f"#### dataset {ds.name}" if markdown else f"dataset {ds.name}")
-        if markdown:
-            lines.append("")
-        if ds.status != "both":
-            lines.append(f"{bullet}dataset {'added' if ds.status == 'added' else 'gone'}"
-                         + (f" ({ds.data_note})" if ds.data_note else ""))
-        else:
-            fp_old = dataset_fingerprints(d.old.manifest).get(ds.name) or "?"
-            fp_new = dataset_fingerprints(d.new.manifest).get(ds.name) or "?"
-            if ds.data_changed:
-                lines.append(f"{bullet}data: CHANGED (fingerprint {fp_old[:12]} -> "
-                             f"{fp_new[:12]}; {ds.data_note})")
-            else:
-                lines.append(f"{bullet}data: unchanged ({ds.data_note})" if ds.data_note
-                             else f"{bullet}data: unchanged")
-        for candidate, _, text in ds.files:
-            lines.append(f"{bullet}forecasts file of {candidate}: {text}")
-        ro, rn = ds.reference
-        if ro != rn and ds.status == "both":
-            lines.append(f"{bullet}reference: {ro} -> {rn}")
-        elif rn or ro:
-            lines.append(f"{bullet}reference: {rn or ro}")
-        if ds.added:
-            lines.append(f"{bullet}added: {', '.join(ds.added)}")
-        if ds.gone:
-            lines.append(f"{bullet}gone: {', '.join(ds.gone)}")
-        if markdown:
-            lines.append("")
-        header = ["rank", "forecaster", "role", f"{m} old", f"{m} new", "change", "change %",
-                  "failed", ""]
-        rows = []
-        for f in ds.forecasters:
-            old, new = f.values.get(m, (math.nan, math.nan))
-            verdict = "gone" if not f.in_new else "added" if not f.in_old else _verdict(
-                m, old, new, f.within_tolerance(m))
-            if (fail_pct is not None and f.role == "candidate" and verdict == "worse"
-                    and worsening(m, old, new) > fail_pct):
-                verdict = f"worse > {fail_pct:g}%"
-            change = new - old if math.isfinite(old) and math.isfinite(new) else math.nan
-            rows.append([_rank_text(f.old_rank, f.new_rank), f.name, f.role, _num(old),
-                         _num(new), _num(change) if math.isfinite(change) else "-",
-                         percent_text(relative_change(old, new)), _failed_text(*f.failed), verdict])
-        lines.append(render_table(header, rows, markdown, indent="" if markdown else "  "))
-        other = []
-        for f in ds.forecasters:
-            if not (f.in_old and f.in_new):
-                continue
-            for metric, (old, new) in f.values.items():
-                if metric == m or _same(old, new):
-                    continue
-                change = new - old if math.isfinite(old) and math.isfinite(new) else math.nan
-                other.append([f.name, metric, _num(old), _num(new), _num(change),
-                              percent_text(relative_change(old, new)),
-                              "within tolerance" if f.within_tolerance(metric) else ""])
-        if other:
-            lines.append("")
-            lines.append("other metrics that changed:")
-            if markdown:
-                lines.append("")
-            lines.append(render_table(["forecaster", "metric", "old", "new", "change",
-                                       "change %", ""], other, markdown,
-                                      indent="" if markdown else "  "))
-        elif ds.status == "both" and ds.forecasters:
-            lines.append(f"{bullet}other metrics: unchanged")
-        lines.extend(_segment_lines(ds, m, markdown, bullet))
-    lines.append("")
-    lines.append(_summary(d))
-    return "\n".join(lines)
-
-
-def _beats_text(old: bool | None, new: bool | None) -> str:
-    a = "-" if old is None else "yes" if old else "no"
-    b = "-" if new is None else "yes" if new else "no"
-    return a if a == b else f"{a} -> {b}"
-
-
-def _segment_lines(ds: DatasetDiff, m: str, markdown: bool, bullet: str) -> list[str]:
-    """The segment section of one dataset: the rows that changed, or that none did."""
-    if ds.segments_note:
-        return [f"{bullet}segments: {ds.segments_note}; not compared"]
-    if not ds.segments:
-        return []
-    changed = [s for s in ds.segments if s.changed()]
-    if not changed:
-        return [f"{bullet}segments: unchanged ({len(ds.segments)} rows of {SEGMENT_LEADERBOARD})"]
-    lines = ["", f"segments that changed ({len(changed)} of {len(ds.segments)} rows of "
-             f"{SEGMENT_LEADERBOARD}):"]
-    if markdown:
-        lines.append("")
-    rows = []
-    for s in changed:
-        old, new = s.value
-        verdict = ("gone" if s.rank[1] is None else "added" if s.rank[0] is None
-                   else _verdict(m, old, new))
-        rows.append([s.attribute, s.segment, s.forecaster, _failed_text(*s.series),
-                     _rank_text(*s.rank), _num(old), _num(new),
-                     percent_text(relative_change(old, new)), _beats_text(*s.beats), verdict])
-    header = ["attribute", "segment", "forecaster", "series", "rank", f"{m} old", f"{m} new",
-              "change %", "beats ref", ""]
-    lines.append(render_table(header, rows, markdown, indent="" if markdown else "  "))
-    return lines
-
-
-def _summary(d: Diff) -> str:
-    """One closing line: nothing changed, or what kinds of change there were."""
-    noise = d.within_tolerance()
-    if not d.changed():
-        if not noise:
-            files = " forecasts files," if any(ds.files for ds in d.datasets) else ""
-            return f"no change: same config, data,{files} forecasters and scores"
-        why = " (platform changed)" if d.platform_changes else ""
-        return (f"no change beyond numerical tolerance: same config, data and forecasters; "
-                f"{noise} score(s) differ within tolerance{why}")
-    parts = []
-    if d.config_changed:
-        parts.append("config changed")
-    if d.version_changes:
-        parts.append("library versions changed")
-    data = [ds.name for ds in d.datasets if ds.data_changed]
-    if data:
-        parts.append(f"data changed for {', '.join(data)}")
-    files = [name for ds in d.datasets for name, changed, _ in ds.files if changed]
-    if files:
-        parts.append(f"forecasts file changed for {', '.join(files)}")
-    for status in ("added", "gone"):
-        names = [ds.name for ds in d.datasets if ds.status == status]
-        if names:
-            parts.append(f"dataset {status}: {', '.join(names)}")
-    added = sum(len(ds.added) for ds in d.datasets)
-    gone = sum(len(ds.gone) for ds in d.datasets)
-    if added or gone:
-        parts.append(f"{added} forecaster(s) added, {gone} gone")
-    moved = sum(1 for ds in d.datasets for f in ds.forecasters
-                if f.in_old and f.in_new and f.really_differs(d.rank_by))
-    parts.append(f"{moved} {d.rank_by} score(s) changed")
-    segments = sum(1 for ds in d.datasets for s in ds.segments if s.changed())
-    if segments:
-        parts.append(f"{segments} segment row(s) changed")
-    if noise:
-        parts.append(f"{noise} score(s) within tolerance")
-    if d.platform_changes:
-        parts.append("platform changed")
-    return "changed: " + "; ".join(parts)
