@@ -11,9 +11,9 @@ from __future__ import annotations
 
 from pathlib import Path
 
-import numpy as np
 import pandas as pd
 
+from runner.output.numbers import format_percent, format_table
 from runner.output.reader import SEGMENT_LEADERBOARD
 from runner.output.tables import to_csv_text, to_markdown
 from runner.scoring.classify import ADI_CUTOFF, CV2_CUTOFF, TIER_SHARES
@@ -72,11 +72,11 @@ def segments_markdown(board: pd.DataFrame, rank_by: str, metrics: list[str],
         skill = segment_skill(board, str(dataset), str(attribute),
                               (order or {}).get(str(dataset)))
         out.append(f"## {dataset}: {attribute}\n")
-        out.append("| forecaster | " + " | ".join(str(c) for c in skill.columns) + " |")
-        out.append("|---|" + "|".join("---:" for _ in skill.columns) + "|")
-        for name, values in skill.iterrows():
-            cells = ["-" if np.isnan(v) else f"{v:+.1f}%" for v in values.tolist()]
-            out.append(f"| {name} | " + " | ".join(cells) + " |")
+        # Skill in percent as the report shows it (format_percent: one decimal, signed).
+        rows = [[str(name), *(format_percent(v) for v in values.tolist())]
+                for name, values in skill.iterrows()]
+        header = ["forecaster", *(str(c) for c in skill.columns)]
+        out.append(format_table(header, rows, markdown=True))
         out.append("")
     out += ["# Leaderboard by segment", ""]
     # Each segment becomes one "dataset" of the leaderboard's own Markdown, titled by its key.
