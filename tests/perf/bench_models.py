@@ -2,7 +2,7 @@
 
 Target: with 200 series, 5 folds, ARIMA(1,1,1) and theta, jobs=1 and no cache, castgrid's wall
 time (building the tasks and running them through ``runner.execution.engines.execute``) is at most
-1.10 times that of a plain loop that calls statsmodels directly on the same training slices.
+1.03 times that of a plain loop that calls statsmodels directly on the same training slices.
 
 The series are synthetic (seeded random walks with a yearly season); only the timing matters,
 and both paths must produce the same forecasts (counted). Rounds alternate between the paths
@@ -181,12 +181,12 @@ def main() -> None:
             f"  {name:11s} best {best[name]:7.2f} s  ({best[name] / n_tasks * 1e3:.2f} ms/fit; "
             f"rounds: {rounds})"
         )
-    verdict = "met" if ratio <= 1.10 else "NOT met"
-    print(f"  ratio castgrid / plain: {ratio:.3f}  (target <= 1.10: {verdict})")
+    verdict = "met" if ratio <= 1.03 else "NOT met"
+    print(f"  ratio castgrid / plain: {ratio:.3f}  (target <= 1.03: {verdict})")
     # castgrid holds BLAS to one thread (as its workers do), which on small fits is faster than
     # the default threads; against a loop held the same way the ratio is castgrid's own cost.
-    verdict_1 = "met" if ratio_1 <= 1.10 else "NOT met"
-    print(f"  ratio castgrid / plain-1blas: {ratio_1:.3f}  (target <= 1.10: {verdict_1})")
+    verdict_1 = "met" if ratio_1 <= 1.03 else "NOT met"
+    print(f"  ratio castgrid / plain-1blas: {ratio_1:.3f}  (target <= 1.03: {verdict_1})")
     over = (best["castgrid"] - best["plain-1blas"]) / n_tasks * 1e3
     print(f"  castgrid overhead per task against plain-1blas: {over:.3f} ms")
     print(
