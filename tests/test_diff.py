@@ -322,3 +322,61 @@ def test_noise_tolerance_of_each_metric() -> None:
     # moves the mean of the fold means by 4 x (100 / 180) / 4 points
     assert noise_tolerance("coverage_80", 80.0, 120, 6, 4) == pytest.approx(100 * 4 / 720)
     assert noise_tolerance("mase", float("nan"), 120, 6, 4) == 0.0
+
+
+def _segments(folder: Path, rows: list[tuple[str, int, str, float, bool]]) -> None:
+    """leaderboard_segments.csv of one segment (format kiosk, 4 series, 5 folds): rows of
+    (forecaster, rank, role, mase, beats)."""
+    lines = ["dataset,attribute,segment,rank,forecaster,kind,role,series,folds,tasks,failed,"
+             "mase_mean,beats_reference"]
+    lines += [f"shops,format,kiosk,{rank},{name},{name},{role},4,5,20,0,{mase!r},"
+              f"{'true' if beats else 'false'}" for name, rank, role, mase, beats in rows]
+    (folder / "leaderboard_segments.csv").write_text("\n".join(lines) + "\n")
+
+
+def test_segment_noise_is_within_tolerance_like_the_leaderboard(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str]
+) -> None:
+    # Measured on the demo under two OpenBLAS kernels: every segment row's mase moved by far
+    # less than 0.1%, two candidates within noise of each other swapped places, and diff called
+    # the run changed although the leaderboard itself was within tolerance.
+    a = write_folder(tmp_path / "a", OLD_SHOPS, "aaaa1111", ["arima"])
+    b = tmp_path / "b"
+    shutil.copytree(a, b)
+    _rewrite(a, platform=PLATFORM)
+    other = json.loads(json.dumps(PLATFORM))
+    other["blas"][0]["kernel"] = "Haswell"
+    _rewrite(b, platform=other)
+    _segments(a, [("arima", 1, "candidate", 0.94039, True),
+                  ("theta", 2, "candidate", 0.94040, True),
+                  ("seasonal_naive", 3, "baseline", 1.0, False)])
+    # +0.0005% and -0.003%: within 0.1% of the value, and theta now ranks first
+    _segments(b, [("theta", 1, "candidate", 0.94037, True),
+                  ("arima", 2, "candidate", 0.940395, True),
+                  ("seasonal_naive", 3, "baseline", 1.0, False)])
+    d = compare(Results.load(str(a)), Results.load(str(b)))
+    rows = {s.forecaster: s for s in d.datasets[0].segments}
+    assert rows["theta"].within_tolerance() and rows["arima"].within_tolerance()
+    assert rows["theta"].rank == (2, 1) and not any(s.changed() for s in rows.values())
+    assert not d.changed()
+    assert main(["diff", str(a), str(b), "--fail-if-worse", "0"]) == 0
+    out = capsys.readouterr().out
+    assert "segments: unchanged (3 rows of leaderboard_segments.csv)" in out
+    assert out.rstrip().splitlines()[-1] == (
+        "no change beyond numerical tolerance: same config, data and forecasters; "
+        "2 score(s) differ within tolerance (platform changed)")
+
+    # theta 0.2% better: a real change; the swap it causes is shown with it, and arima's own
+    # move (within tolerance) is labelled so
+    _segments(b, [("theta", 1, "candidate", 0.9385, True),
+                  ("arima", 2, "candidate", 0.940395, True),
+                  ("seasonal_naive", 3, "baseline", 1.0, False)])
+    d = compare(Results.load(str(a)), Results.load(str(b)))
+    changed = {s.forecaster for s in d.datasets[0].segments if s.changed()}
+    assert changed == {"theta", "arima"} and d.changed()
+    text = format_diff(d)
+    assert "segments that changed (2 of 3 rows of leaderboard_segments.csv):" in text
+    arima = next(x for x in text.splitlines() if "kiosk" in x and " arima " in x)
+    assert arima.rstrip().endswith("within tolerance")
+    theta = next(x for x in text.splitlines() if "kiosk" in x and " theta " in x)
+    assert theta.rstrip().endswith("better")

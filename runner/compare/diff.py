@@ -166,11 +166,27 @@ class SegmentChange:
     series: tuple[float, float]  # series in the segment (NaN: absent)
     value: tuple[float, float]  # rank metric mean
     beats: tuple[bool | None, bool | None]  # beats_reference (None: absent)
+    tolerance: float = 0.0  # largest change of the rank metric that is numerical noise
+    #: every rank metric of this row's segment moved by no more than its tolerance, so a rank
+    #: swap inside the segment is noise too (as for the leaderboard, ranks follow the scores)
+    segment_within_tolerance: bool = False
+
+    def within_tolerance(self) -> bool:
+        """Whether the rank metric differs, but by no more than its numerical tolerance."""
+        old, new = self.value
+        if same_score(old, new) or not (math.isfinite(old) and math.isfinite(new)):
+            return False
+        return abs(new - old) <= self.tolerance
 
     def changed(self) -> bool:
-        """Whether the row differs between the two folders."""
-        return (self.rank[0] != self.rank[1] or self.beats[0] != self.beats[1]
-                or not same_score(*self.series) or not same_score(*self.value))
+        """Whether the row differs between the two folders beyond numerical tolerance."""
+        if self.rank[0] is None or self.rank[1] is None:
+            return self.rank[0] != self.rank[1]
+        if self.beats[0] != self.beats[1] or not same_score(*self.series):
+            return True
+        if not same_score(*self.value) and not self.within_tolerance():
+            return True
+        return self.rank[0] != self.rank[1] and not self.segment_within_tolerance
 
 
 @dataclass
@@ -217,9 +233,11 @@ class DatasetDiff:
         return False
 
     def within_tolerance(self) -> int:
-        """How many (forecaster, metric) scores differ within their tolerance."""
-        return sum(f.within_tolerance(m) for f in self.forecasters if f.in_old and f.in_new
-                   for m in f.values)
+        """How many (forecaster, metric) scores, and segment rows' rank metrics, differ within
+        their tolerance."""
+        return (sum(f.within_tolerance(m) for f in self.forecasters if f.in_old and f.in_new
+                    for m in f.values)
+                + sum(s.within_tolerance() for s in self.segments))
 
 
 @dataclass
@@ -405,15 +423,17 @@ def compare(old: Results, new: Results) -> Diff:
                 nv = float(n[col]) if n is not None and col in n else math.nan
                 fc.values[m] = (ov, nv)
             dd.forecasters.append(fc)
-        _compare_segments(dd, old, new, rank_by)
+        _compare_segments(dd, old, new, rank_by, horizon)
         datasets.append(dd)
     return Diff(old, new, rank_by, config_changes, version_changes, datasets,
                 platform_changes(old.manifest, new.manifest))
 
 
-def _compare_segments(dd: DatasetDiff, old: Results, new: Results, rank_by: str) -> None:
-    """Fill ``dd.segments``: rank, series count, rank metric and win of every forecaster in
-    every segment, old and new (rows in the new file's order, then those only in the old)."""
+def _compare_segments(dd: DatasetDiff, old: Results, new: Results, rank_by: str,
+                      horizon: int) -> None:
+    """Fill ``dd.segments``: rank, series count, rank metric (with its numerical tolerance, as
+    for the leaderboard) and win of every forecaster in every segment, old and new (rows in the
+    new file's order, then those only in the old)."""
     if dd.status != "both" or (old.segments is None and new.segments is None):
         return
     if old.segments is None or new.segments is None:
@@ -439,7 +459,17 @@ def _compare_segments(dd: DatasetDiff, old: Results, new: Results, rank_by: str)
                    float(n[col]) if n is not None and col in n else math.nan),
             beats=(None if o is None else bool(o["beats_reference"]),
                    None if n is None else bool(n["beats_reference"])),
+            tolerance=_tolerances(o, [rank_by], horizon).get(rank_by, 0.0),
         ))
+    # A segment whose rows all kept their rank metric within tolerance has only noise in it;
+    # its rank swaps follow from that noise (another CPU or BLAS kernel), not from a change.
+    noisy: dict[tuple[str, str], bool] = {}
+    for s in dd.segments:
+        calm = s.rank[0] is not None and s.rank[1] is not None and (
+            same_score(*s.value) or s.within_tolerance())
+        noisy[(s.attribute, s.segment)] = noisy.get((s.attribute, s.segment), True) and calm
+    for s in dd.segments:
+        s.segment_within_tolerance = noisy[(s.attribute, s.segment)]
 
 
 def _failed(row: dict[str, Any] | None) -> float:

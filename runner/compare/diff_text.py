@@ -233,7 +233,7 @@ def _segment_lines(ds: DatasetDiff, m: str, markdown: bool, bullet: str) -> list
     for s in changed:
         old, new = s.value
         verdict = ("gone" if s.rank[1] is None else "added" if s.rank[0] is None
-                   else _verdict(m, old, new))
+                   else _verdict(m, old, new, noise=s.within_tolerance()))
         rows.append([s.attribute, s.segment, s.forecaster,
                      _pair(*(format_number(v, series_d) for v in s.series)),
                      _pair(*(format_number(v, rank_d) for v in s.rank)),
