@@ -6,10 +6,12 @@ For every dataset it lists forecasters added and gone, rank changes, each metric
 or a different machine. ``--fail-if-worse PCT`` makes the command a gate: exit code 4 when a
 candidate's rank metric got worse by more than PCT percent.
 
-A change of a score within its numerical tolerance
-(:func:`runner.scoring.metrics.noise_tolerance`: 0.1% of the value, one interval hit per fold
-for coverage) is shown as "within tolerance": it is what another CPU or BLAS kernel does to the
-same computation. It is not a change in the closing line and never trips ``--fail-if-worse``.
+On one platform a rerun gives the same bits, so every difference counts. When the two
+manifests record different platforms (or either records none), a score that moved by no more
+than its numerical tolerance (:func:`runner.scoring.metrics.noise_tolerance`: 1% of the value,
+5% for interval scores, one interval hit per fold for coverage) is shown as "within
+tolerance": what another CPU or BLAS kernel does to the same computation. It is not a change in
+the closing line and never trips ``--fail-if-worse``.
 
 OLD and NEW are results folders or ``REV:path`` read from git (see :mod:`runner.output.reader`).
 """
@@ -344,6 +346,10 @@ def compare(old: Results, new: Results) -> Diff:
     ]
     old_ref, new_ref = old.manifest.get("reference") or {}, new.manifest.get("reference") or {}
     horizon = int((old.manifest.get("config") or {}).get("horizon") or 0)
+    platforms = platform_changes(old.manifest, new.manifest)
+    # the same platform gives the same bits: there, every difference is real
+    same_platform = ("platform" in old.manifest and "platform" in new.manifest
+                     and not platforms)
 
     datasets = []
     for name in dict.fromkeys(new.datasets() + old.datasets()):
@@ -366,7 +372,7 @@ def compare(old: Results, new: Results) -> Diff:
                 None if n is None else _rank(n["rank"]),
                 in_old=o is not None, in_new=n is not None,
                 failed=(_failed(o), _failed(n)),
-                tolerance=_tolerances(o, metrics, horizon),
+                tolerance={} if same_platform else _tolerances(o, metrics, horizon),
             )
             for m in metrics:
                 col = f"{m}_mean"
@@ -375,8 +381,7 @@ def compare(old: Results, new: Results) -> Diff:
                 fc.values[m] = (ov, nv)
             dd.forecasters.append(fc)
         datasets.append(dd)
-    return Diff(old, new, rank_by, config_changes, version_changes, datasets,
-                platform_changes(old.manifest, new.manifest))
+    return Diff(old, new, rank_by, config_changes, version_changes, datasets, platforms)
 
 
 def _failed(row: dict[str, Any] | None) -> float:
@@ -434,14 +439,18 @@ def _header(d: Diff, markdown: bool) -> list[str]:
         out.append("config: unchanged")
     out.append("versions: " + ("changed (" + ", ".join(d.version_changes) + ")"
                                if d.version_changes else "unchanged"))
-    if d.platform_changes:
-        out.append("platform: changed (" + "; ".join(d.platform_changes) + "): scores may "
-                   "differ within the numerical tolerance")
-    elif "platform" in nm:
-        out.append(f"platform: unchanged ({nm['platform'].get('machine', '?')}, BLAS "
-                   f"{_platform_text(nm['platform'].get('blas') or [])})")
+    missing = [side for side, m in (("old", om), ("new", nm)) if "platform" not in m]
+    if missing:
+        where = "" if len(missing) == 2 else f" in the {missing[0]} results"
+        out.append(f"platform: not recorded{where}: scores are compared within the numerical "
+                   "tolerance")
+    elif d.platform_changes:
+        out.append("platform: changed (" + "; ".join(d.platform_changes) + "): scores are "
+                   "compared within the numerical tolerance")
     else:
-        out.append("platform: not recorded")
+        out.append(f"platform: unchanged ({nm['platform'].get('machine', '?')}, BLAS "
+                   f"{_platform_text(nm['platform'].get('blas') or [])}): scores are compared "
+                   "exactly")
     if om["rank_by"] != nm["rank_by"]:
         out.append(f"rank metric: {nm['rank_by']} (was {om['rank_by']}; ranks are not "
                    "comparable)")
