@@ -38,14 +38,15 @@ SIMULATION_SEED = 0
 SIMULATIONS = 1000
 
 #: Options of statsmodels' L-BFGS-B maximum-likelihood fit. Its defaults (factr 1e7, pgtol
-#: 1e-5) stop a seasonal model far from the optimum (log-likelihoods up to 39 below it on the
-#: demo) at a point that depends on the CPU's BLAS kernel; these run the optimiser to its
-#: numerical limit. Measured in README, "Reproducibility".
+#: 1e-5) often stop a seasonal model far from the optimum (log-likelihoods up to 47 below it
+#: on the demo) at a point that depends on the CPU's BLAS kernel; these run the optimiser to
+#: its numerical limit. Measured in README, "Reproducibility".
 FIT_OPTIONS = {"factr": 10.0, "pgtol": 1e-10, "maxiter": 10000, "maxfun": 100000}
-#: Starting smoothing weights (alpha, beta, gamma) tried besides statsmodels' own start: the
-#: likelihood of a seasonal model has several local optima, and one start alone lands in a
-#: different one on a different BLAS kernel. The fit keeps the highest likelihood.
-SMOOTHING_STARTS = ((0.1, 0.01, 0.01), (0.5, 0.05, 0.2), (0.9, 0.05, 0.05))
+#: Starting smoothing weights (alpha, beta, gamma) tried besides statsmodels' own start
+#: (0.1, 0.01, 0.01): the likelihood of a seasonal model has several local optima, and one
+#: start alone lands in a different one on a different BLAS kernel. The fit keeps the highest
+#: likelihood.
+SMOOTHING_STARTS = ((0.5, 0.05, 0.2), (0.9, 0.05, 0.05))
 
 
 class ETS:
