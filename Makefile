@@ -16,7 +16,7 @@ demo: $(BIN)/.castgrid-installed
 
 test: $(BIN)/.castgrid-installed
 	$(BIN)/ruff check runner tests
-	$(BIN)/python -m pytest -q
+	$(BIN)/python -m pytest -q -n 2
 
 lint: $(BIN)/.castgrid-installed
 	$(BIN)/ruff check runner tests

@@ -5,7 +5,9 @@ The public API::
     runner.run(path_or_config)       -> RunResult (leaderboard and scores as DataFrames)
     runner.load_config(path)         -> Config
     runner.Forecast                  what a forecaster's predict may return
-    runner.ConfigError, DataError, PluginError
+    runner.PanelHistory              what a panel forecaster's fit receives (kind: panel_plugin)
+    runner.PanelForecast             what a panel forecaster's predict may return
+    runner.ConfigError, DataError, PluginError, PathError
 
 Names are imported on first use (PEP 562), so that worker processes and the command line do
 not pay for pandas and the pipeline unless they need them.
@@ -24,6 +26,9 @@ _EXPORTS = {
     "ConfigError": "runner.errors",
     "DataError": "runner.errors",
     "Forecast": "runner.forecasters.contract",
+    "PanelForecast": "runner.forecasters.contract",
+    "PanelHistory": "runner.forecasters.contract",
+    "PathError": "runner.errors",
     "PluginError": "runner.errors",
     "RunResult": "runner.pipeline",
     "load_config": "runner.config",

@@ -8,6 +8,7 @@
 from __future__ import annotations
 
 from dataclasses import dataclass
+from functools import cached_property
 from pathlib import Path
 from typing import Any
 
@@ -24,15 +25,28 @@ class RunResult:
     """What :func:`run` returns: the leaderboard, the task scores and where they were written."""
 
     leaderboard: pd.DataFrame
-    scores: pd.DataFrame
     out_dir: Path | None
     manifest: dict[str, Any]
     evaluation: Evaluation
+
+    @cached_property
+    def scores(self) -> pd.DataFrame:
+        """One row per dataset, series, forecaster and fold (:func:`scores_frame`); built on
+        first use, since the command line never needs it as a DataFrame."""
+        return scores_frame(self.evaluation)
 
     @property
     def failed_tasks(self) -> int:
         """Number of tasks that failed."""
         return int(self.manifest["tasks"]["failed"])
+
+    @cached_property
+    def segments(self) -> pd.DataFrame:
+        """The leaderboard by segment (leaderboard_segments.csv as a DataFrame; no rows when
+        the config names no ``segments``)."""
+        from runner.scoring.segments import build_segment_leaderboard
+
+        return build_segment_leaderboard(self.evaluation)
 
 
 def output_dir(cfg: Config, override: str | Path | None = None) -> Path:
@@ -45,21 +59,20 @@ def output_dir(cfg: Config, override: str | Path | None = None) -> Path:
 
 
 def scores_frame(ev: Evaluation) -> pd.DataFrame:
-    """One row per dataset, series, forecaster and fold with every metric column."""
-    frames = []
-    for dr in ev.datasets:
-        dp = dr.plan
-        for r in dr.results:
-            frame = pd.DataFrame({
-                "dataset": dp.panel.name,
-                "series": [dp.panel.keys[i] for i in dp.series],
-                "forecaster": r.spec.name,
-                "fold": dp.fold,
-            })
-            for col, sc in r.scores.items():
-                frame[col] = sc.per_task
-            frames.append(frame)
-    return pd.concat(frames, ignore_index=True)
+    """One row per dataset, series, forecaster and fold with every metric column: the table
+    written as scores.parquet (:func:`runner.output.writer.scores_table`), as a DataFrame.
+
+    ``fold`` numbers the dataset's origins from the oldest; ``origin`` is the time of the
+    fold's last training observation, the same for every series.
+    """
+    from runner.output.writer import scores_table
+    from runner.scoring.metrics import columns
+
+    cfg = ev.plan.config
+    frame = scores_table(ev, columns(cfg.metrics, tuple(cfg.intervals))).to_pandas()
+    for name in ("dataset", "series", "forecaster"):
+        frame[name] = frame[name].astype(str)
+    return frame
 
 
 def prepare(config: str | Path | Config, config_path: Path | None = None) -> Plan:
@@ -69,14 +82,51 @@ def prepare(config: str | Path | Config, config_path: Path | None = None) -> Pla
     one line naming the config field, not a failed task per series.
     """
     from runner.config import load_config
+    from runner.forecasters.recorded import RecordedSources
+    from runner.forecasters.specs import forecaster_specs
     from runner.forecasters.validation import validate_forecasters
+    from runner.scoring.metrics import DEFAULT_METRICS, check_metrics, unreliable_rank_warning
 
     if isinstance(config, (str, Path)):
         config_path = Path(config)
         config = load_config(config_path)
     config_path = config_path or Path("config.yaml")
-    validate_forecasters(config, config_path)
-    return build_plan(config, config_path)
+    rank_by, note = check_metrics(
+        config.metrics, config.rank_by, bool(config.intervals), str(config_path)
+    )
+    notes = [note] if note else []
+    # defaults are written into the config the run records, so the manifest's config (and its
+    # hash) says exactly what ran
+    config = config.model_copy(update={
+        "metrics": list(DEFAULT_METRICS) if config.metrics is None else config.metrics,
+        "rank_by": rank_by,
+    })
+    dropped = validate_forecasters(config, config_path)
+    notes.extend(dropped.values())
+    specs = [s for s in forecaster_specs(config) if s.name not in dropped]
+    # forecasts made elsewhere: read and checked here, before any work, like the datasets
+    recorded = RecordedSources(config, specs, config_path)
+    plan = build_plan(config, specs, config_path, file_origins=recorded.origins)
+    recorded.attach(plan)
+    plan.notes.extend(notes)
+    warning = unreliable_rank_warning(rank_by)
+    if warning is not None:
+        plan.warnings.append(warning)
+    return plan
+
+
+def _check_paths(plan: Plan, target: Path | None, use_cache: bool) -> None:
+    """Fail before any computing when the results folder or the cache cannot be written."""
+    from runner.execution.cache import check_cache_folder
+    from runner.forecasters.registry import is_vectorised
+    from runner.output.writer import check_output_dir
+
+    if target is not None:
+        check_output_dir(target)
+    folder = plan.config.execution.cache_folder()
+    # Only per-series models use the cache; a run of baselines alone never opens it.
+    if use_cache and folder is not None and not all(map(is_vectorised, plan.forecasters)):
+        check_cache_folder(folder)
 
 
 def run(
@@ -93,19 +143,25 @@ def run(
 
     Writes the results folder unless ``write`` is False, and returns the leaderboard and the
     per-task scores as DataFrames. Bad config or data raise :class:`runner.ConfigError` /
-    :class:`runner.DataError` before anything is written.
+    :class:`runner.DataError` before anything is written, and a results folder or cache that
+    cannot be written raises :class:`runner.PathError` before anything is computed.
     """
     from runner.output.writer import manifest as build_manifest
     from runner.output.writer import write_results
 
     plan = config if isinstance(config, Plan) else prepare(config)
+    target = output_dir(plan.config, out_dir) if write else None
+    _check_paths(plan, target, use_cache)
     ev = evaluate(plan, use_cache=use_cache, jobs=jobs, quiet=quiet)
     board = build_leaderboard(ev)
-    target = output_dir(plan.config, out_dir) if write else None
     if target is not None:
+        from functools import partial
+
         from runner.report.page import build_report
 
-        man = write_results(ev, board, target, finish=build_report if report else None)
+        # plots whose data did not change are copied from the results being replaced
+        finish = partial(build_report, previous=target) if report else None
+        man = write_results(ev, board, target, finish=finish)
     else:
         man = build_manifest(ev)
-    return RunResult(board, scores_frame(ev), target, man, ev)
+    return RunResult(board, target, man, ev)

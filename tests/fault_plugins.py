@@ -163,6 +163,24 @@ class SlowLine(LineFit):
         return super().fit(y, season=season, covariates=covariates)
 
 
+class FailsUnlessLength(Exits):
+    """Raises ValueError on every training slice except those of ``keep_length`` values.
+
+    With expanding windows each fold has its own training length, so this fails every fold
+    but one: a forecaster with failed tasks, for the ranking tests.
+    """
+
+    def __init__(self, keep_length: int = 0) -> None:
+        super().__init__(when_length=keep_length)
+        self.keep_length = keep_length
+
+    def fit(self, y, *, season, covariates=None):
+        if len(y) != self.keep_length:
+            raise ValueError(f"only fits {self.keep_length} values, got {len(y)}")
+        self.last_ = float(y[-1])
+        return self
+
+
 class Gate(LineFit):
     """:class:`LineFit` that, on training slices of the lengths in ``when_lengths``, writes a
     file ``blocked-<pid>-<length>-<id>`` into ``folder`` and then waits until ``folder/open``

@@ -127,3 +127,34 @@ def test_gap_forecasts_through_the_gap(tmp_path):
     np.testing.assert_allclose(drift["actual"], y[10:12])
     naive = fc[fc.forecaster == "naive"]
     np.testing.assert_allclose(naive["forecast"], [y[7], y[7]])
+
+
+def test_parquet_times_are_real_times_and_match_the_data(tmp_path):
+    """Dates are stored as timestamps, integer times as integers; a mix falls back to text."""
+    import pyarrow as pa
+    import pyarrow.parquet as pq
+
+    cfg = _write(tmp_path)
+    out = tmp_path / "dates"
+    runner.run(cfg, out_dir=out, report=False)
+    for name, column in (("scores.parquet", "origin"), ("forecasts.parquet", "origin"),
+                         ("forecasts.parquet", "time")):
+        assert pa.types.is_timestamp(pq.read_schema(out / name).field(column).type), name
+    fc = pq.read_table(out / "forecasts.parquet").to_pandas()
+    # the origin is the last training observation: one quarter before the first forecast time
+    first = fc[fc["step"] == 1]
+    assert (first["origin"] + pd.DateOffset(months=3) == first["time"]).all()
+    # integer times: one more dataset, same file, the quarter written as a running number
+    frame = pd.read_csv(tmp_path / "q.csv", parse_dates=["quarter"])
+    frame["quarter"] = (frame["quarter"].dt.year - 1959) * 4 + frame["quarter"].dt.quarter
+    frame.to_csv(tmp_path / "n.csv", index=False)
+    (tmp_path / "n.yaml").write_text(CONFIG.replace("path: q.csv", "path: n.csv"))
+    runner.run(tmp_path / "n.yaml", out_dir=tmp_path / "ints", report=False)
+    schema = pq.read_schema(tmp_path / "ints" / "forecasts.parquet")
+    assert pa.types.is_integer(schema.field("time").type)
+    both = CONFIG.replace("datasets:\n", "datasets:\n  - {name: n, path: n.csv, series: "
+                          "[region, item], time: quarter, target: sales}\n")
+    (tmp_path / "both.yaml").write_text(both)
+    runner.run(tmp_path / "both.yaml", out_dir=tmp_path / "both", report=False)
+    schema = pq.read_schema(tmp_path / "both" / "forecasts.parquet")
+    assert pa.types.is_string(schema.field("time").type)

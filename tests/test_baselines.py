@@ -79,6 +79,29 @@ def test_interval_widths_match_published_formulas(y):
     assert (hi[0] - p) == pytest.approx(Z95 * sigma * np.sqrt(steps * (1 + steps / (T - 1))))
 
 
+def test_moving_average_intervals_use_their_own_one_step_errors(y):
+    # Constant-level model (module docstring of runner.forecasters.benchmarks): the forecast
+    # error has the same distribution at every step, estimated by the root mean square of the
+    # method's in-sample one-step errors over the T - k positions with k values before them.
+    h, T = 7, len(y)
+    for model, k, stat in [
+        (MovingAverage(4, "mean"), 4, np.mean),
+        (MovingAverage(5, "median"), 5, np.median),
+        (SeasonAverage(), 6, np.mean),
+    ]:
+        errors = [y[t] - stat(y[t - k:t]) for t in range(k, T)]
+        sigma = np.sqrt(np.mean(np.square(errors)))
+        p, lo, hi = _one(model, y, h, season=6, levels=(95.0,))
+        assert (hi[0] - p) == pytest.approx(np.repeat(Z95 * sigma, h)), model
+        assert (p - lo[0]) == pytest.approx(np.repeat(Z95 * sigma, h)), model
+    # the moving mode (count data) gives no interval
+    p, lo, hi = _one(MovingAverage(4, "mode"), np.round(y), h, levels=(95.0,))
+    assert np.isnan(lo).all() and np.isnan(hi).all()
+    # a slice with no in-sample error (length <= k) has no interval either
+    p, lo, hi = _one(MovingAverage(4, "mean"), y[:4], h, levels=(95.0,))
+    assert np.isfinite(p).all() and np.isnan(lo).all()
+
+
 def test_naive_95_intervals_cover_gaussian_random_walks():
     # Common practice: for a Gaussian random walk the naive method is the optimal forecast and
     # its normal intervals are correct, so coverage must be 95% within sampling error.

@@ -274,9 +274,9 @@ def test_cache_info_and_prune_commands(tmp_path, cli):
     both = config("both", "{name: theta, kind: theta}, {name: ets, kind: ets}")
     theta_only = config("theta", "{name: theta, kind: theta}")
     from runner.execution.model_tasks import build_model_tasks
-    from runner.windows.plan import build_plan
+    from runner.pipeline import prepare
 
-    tasks, shared = build_model_tasks(build_plan(both))
+    tasks, shared = build_model_tasks(prepare(both))
     assert len(tasks) == 2 * 2 * 3
     forecast_models(tasks, shared, ExecutionConfig(jobs=1, cache=str(tmp_path / "cache")),
                     quiet=True)
@@ -290,5 +290,5 @@ def test_cache_info_and_prune_commands(tmp_path, cli):
     assert r.returncode == 0 and "dropped 6 of 12" in r.stdout, r.stdout + r.stderr
     r = cli("cache", "info", str(theta_only))
     assert "entries  6" in r.stdout and "ets" not in r.stdout
-    theta_tasks, theta_shared = build_model_tasks(build_plan(theta_only))
+    theta_tasks, theta_shared = build_model_tasks(prepare(theta_only))
     assert count_cached(theta_tasks, theta_shared, tmp_path / "cache") == 6

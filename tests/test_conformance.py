@@ -8,7 +8,7 @@ import numpy as np
 import pytest
 
 from runner.forecasters.contract import Forecast
-from runner.forecasters.registry import BUILTIN, load_entry
+from runner.forecasters.registry import BUILTIN, KINDS, load_entry
 from runner.testing import (
     CHECKS,
     RecordingForecaster,
@@ -22,12 +22,18 @@ from runner.testing import (
 FAST_PARAMS = {"arima_search": {"p_up_to": 1, "q_up_to": 1, "fits_up_to": 6, "seasonal": False}}
 
 
-@pytest.mark.parametrize("kind", sorted(BUILTIN))
+# Derived kinds (combinations, selections) and recorded ones have no fit / predict: their
+# forecasts are computed from other forecasters' (tests/test_derived.py) or read from a file
+# (tests/test_recorded.py).
+FORECASTING_KINDS = sorted(k.name for k in KINDS if not (k.derived or k.from_file))
+
+
+@pytest.mark.parametrize("kind", FORECASTING_KINDS)
 def test_every_builtin_passes(kind):
     factory = load_entry(BUILTIN[kind])
     report = check_forecaster(factory, params=FAST_PARAMS.get(kind, {}))
     assert report.passed, str(report)
-    assert [r.name for r in report.results] == list(CHECKS)
+    assert [r.name for r in report.checks] == list(CHECKS)
 
 
 def test_seasonal_arima_and_multiplicative_ets_pass():
@@ -258,3 +264,15 @@ def test_a_constructor_that_raises_fails_every_check():
     report = check_forecaster(factory)
     assert report.failed == list(CHECKS)
     assert "no licence server" in report.result("protocol").message
+
+
+def test_one_check_runs_by_itself_and_unknown_names_are_refused():
+    """Each check is a module-level function; ``only`` runs just the named ones."""
+    from runner.forecasters import conformance
+
+    report = check_forecaster(RecordingForecaster, only=("fit_returns_self", "protocol"))
+    assert [r.name for r in report.checks] == ["protocol", "fit_returns_self"]  # CHECKS order
+    assert report.passed
+    assert all(callable(getattr(conformance, f"check_{name}")) for name in CHECKS)
+    with pytest.raises(ValueError, match="unknown check 'no_such_check'"):
+        check_forecaster(RecordingForecaster, only=("no_such_check",))

@@ -18,7 +18,7 @@ from pandas.tseries.frequencies import to_offset
 
 from runner.config import DatasetConfig
 from runner.data import Panel, load_panel, season_for_frequency
-from runner.errors import DataError
+from runner.errors import ConfigError, DataError
 from runner.forecasters.gaps import fill_slice
 
 
@@ -358,16 +358,24 @@ def test_duplicate_times(tmp_path: Path) -> None:
     assert 'column "month": duplicate time 2021-01-01 (rows 1 and 2)' in _error(ds, tmp_path)
 
 
+def _config_error(ds: DatasetConfig, tmp_path: Path) -> str:
+    with pytest.raises(ConfigError) as info:
+        load_panel(ds, tmp_path, 12, entry="c.yaml: datasets[0]")
+    return str(info.value)
+
+
 def test_frequency_problems(tmp_path: Path) -> None:
     _write(tmp_path, "f.csv", "id,month,value\na,2021-01-01,1\na,2021-01-15,2\na,2021-02-01,3\n")
-    assert "frequency: expected a pandas offset alias" in _error(
-        _long("f.csv", frequency="monthly"), tmp_path
+    # A frequency that is no frequency is the config's mistake, named by its config entry.
+    assert _config_error(_long("f.csv", frequency="monthly"), tmp_path).startswith(
+        'c.yaml: datasets[0].frequency: expected a pandas offset alias'
     )
     msg = _error(_long("f.csv", frequency="MS"), tmp_path)
     assert 'series "a": time 2021-01-15 does not fit frequency MS (row 2)' in msg
     assert "set frequency" in _error(_long("f.csv"), tmp_path)
     _write(tmp_path, "i.csv", "id,month,value\na,1,1\na,2,2\n")
-    assert "dates only" in _error(_long("i.csv", frequency="D"), tmp_path)
+    msg = _config_error(_long("i.csv", frequency="D"), tmp_path)
+    assert msg.startswith("c.yaml: datasets[0].frequency: ") and "dates only" in msg
 
 
 def test_series_at_a_coarser_step(tmp_path: Path) -> None:

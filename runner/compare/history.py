@@ -10,6 +10,7 @@ from __future__ import annotations
 from typing import Any
 
 from runner.output.history import run_labels
+from runner.output.numbers import column_decimals, format_number, format_table
 
 
 def history_table(entries: list[dict[str, Any]], dataset: str) -> tuple[list[str], list[list[Any]]]:
@@ -38,8 +39,6 @@ def _data_label(entry: dict[str, Any], dataset: str) -> str:
 
 def format_history(entries: list[dict[str, Any]], markdown: bool = False) -> str:
     """The history as one table per dataset (rows forecasters, columns runs)."""
-    from runner.compare.diff import render_table
-
     datasets: list[str] = []
     for e in entries:
         for d in e["scores"]:
@@ -55,12 +54,10 @@ def format_history(entries: list[dict[str, Any]], markdown: bool = False) -> str
         _, rows = history_table(entries, dataset)
         header = ["forecaster"] + labels
         data_row = ["(data)"] + [_data_label(e, dataset) for e in entries]
-        body = [[r[0]] + [_fmt(v) for v in r[1:]] for r in rows]
+        # one metric throughout the table: one number of decimals for every cell
+        decimals = column_decimals(v for r in rows for v in r[1:])
+        body = [[r[0]] + [format_number(v, decimals) for v in r[1:]] for r in rows]
         lines.append("")
         lines.append(f"### dataset {dataset}" if markdown else f"dataset {dataset}")
-        lines.append(render_table(header, [data_row] + body, markdown=markdown))
+        lines.append(format_table(header, [data_row] + body, markdown=markdown))
     return "\n".join(lines)
-
-
-def _fmt(v: float | None) -> str:
-    return "-" if v is None else format(float(v), ".4g")

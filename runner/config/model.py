@@ -7,7 +7,6 @@ default silently, since that would skew every score without anyone noticing.
 from __future__ import annotations
 
 import hashlib
-import itertools
 import json
 import re
 from pathlib import Path
@@ -21,20 +20,8 @@ from pydantic import (
     model_validator,
 )
 
-BASELINE_KINDS = (
-    "naive",
-    "moving_average",
-    "seasonal_naive",
-    "season_average",
-    "drift",
-    "mean",
-)
-#: Baselines that only make sense when the season length is above 1.
-SEASONAL_BASELINES = ("seasonal_naive", "season_average")
-MODEL_KINDS = ("arima", "ets", "theta", "arima_search", "plugin")
-POINT_METRICS = ("me", "mae", "mse", "rmse", "mape", "smape", "mase", "rmsse", "r2")
-INTERVAL_METRICS = ("coverage", "winkler", "pinball")
-DEFAULT_METRICS = ["mae", "rmse", "mase", "rmsse", "smape"]
+from runner.errors import brief
+
 #: Names an earlier castgrid release accepted, and the names that replaced them. A config that
 #: still uses one gets a one-line error naming the new name, never a silent fallback.
 RENAMED_KINDS = {"window_average": "moving_average", "auto_arima": "arima_search"}
@@ -45,19 +32,30 @@ RENAMED_PARAMS = {
         "max_models": "fits_up_to",
     },
 }
+#: Kinds whose forecaster is the user's own class, named by ``entry: module:attribute``:
+#: ``plugin`` (one series per fit) and ``panel_plugin`` (every series of a dataset per fit).
+ENTRY_KINDS = ("plugin", "panel_plugin")
+#: ``windows.origins: from_file``: the origins are those of the recorded candidates' files.
+FROM_FILE = "from_file"
 _SHARE = re.compile(r"^\s*(\d+(?:\.\d+)?)\s*%\s*$")
+#: Segments castgrid derives from each series' values (see :mod:`runner.scoring.classify`);
+#: reserved, so no series attribute may take these names.
+DERIVED_SEGMENTS = ("demand_pattern", "volume_tier")
 _NAME = re.compile(r"^[A-Za-z0-9][A-Za-z0-9._-]*$")
 
 
 def _simple_name(v: str) -> str:
     """Names end up in folder names and table cells: keep them to a safe alphabet."""
     if not _NAME.match(v):
-        raise ValueError(f"expected letters, digits, '.', '_' or '-', got {json.dumps(v)}")
+        raise ValueError(f"expected letters, digits, '.', '_' or '-', got {brief(v)}")
     return v
 
 
 class _Strict(BaseModel):
-    model_config = ConfigDict(extra="forbid", frozen=True)
+    # strict: YAML already gives every value its type, so a value of another type is a mistake
+    # to report, not to convert (`horizon: yes` is true, not 1; `horizon: "12"` is text).
+    # Floats still accept integers (`fit_timeout: 60`).
+    model_config = ConfigDict(extra="forbid", frozen=True, strict=True)
 
 
 class DatasetConfig(_Strict):
@@ -73,11 +71,31 @@ class DatasetConfig(_Strict):
     season: int | None = Field(default=None, ge=1)
     covariates: list[str] = Field(default_factory=list)
     missing: Literal["error", "interpolate", "zero"] = "error"
+    #: series attributes (one value per series), read by :mod:`runner.data.attributes`
+    attributes: list[str] = Field(default_factory=list)
+    #: a side file with the series key column(s) and attribute columns
+    attribute_file: str | None = None
 
     @field_validator("name")
     @classmethod
     def _name_is_simple(cls, v: str) -> str:
         return _simple_name(v)
+
+    @field_validator("attributes")
+    @classmethod
+    def _attributes_named_once(cls, v: list[str]) -> list[str]:
+        for name in v:
+            if name in DERIVED_SEGMENTS:
+                raise ValueError(
+                    f"{brief(name)} is the name of a segment castgrid derives itself; rename "
+                    "that column in the file"
+                )
+            if not name.strip():
+                raise ValueError("expected column names, got an empty name")
+        dup = sorted({n for n in v if v.count(n) > 1})
+        if dup:
+            raise ValueError(f"{brief(dup[0])} is listed twice")
+        return v
 
     @field_validator("series")
     @classmethod
@@ -101,6 +119,13 @@ class DatasetConfig(_Strict):
                 )
             if self.covariates:
                 raise ValueError("covariates need layout long")
+            if self.attributes and self.attribute_file is None:
+                raise ValueError(
+                    "layout wide has no column for series attributes; give them in an "
+                    "attribute_file (a column 'series' naming each series, then the attributes)"
+                )
+        if self.attribute_file is not None and not self.attributes:
+            raise ValueError("attribute_file needs attributes: the columns to read from it")
         return self
 
     @property
@@ -112,33 +137,116 @@ class DatasetConfig(_Strict):
 
 
 class WindowsConfig(_Strict):
-    """The rolling-origin scheme (see :mod:`runner.windows.folds` for the fold rule)."""
+    """The rolling-origin scheme (see :mod:`runner.windows.folds` for the origin rule).
+
+    An origin is the time of the last training observation. Origins are points on the
+    dataset's time axis shared by all its series: counted from the dataset's first time by
+    default, or given as ``origins`` (a list of times) or ``first_origin`` (then every
+    ``step``). ``origins: from_file`` takes them from the forecasts files of the config's
+    ``recorded`` candidates (:mod:`runner.forecasters.recorded`). ``align: end`` instead ties
+    them to each series' last observation.
+    """
 
     scheme: Literal["expanding", "sliding"] = "expanding"
     train: int | str
     step: int | None = Field(default=None, ge=1)
     folds: int | None = Field(default=None, ge=1)
     gap: int = Field(default=0, ge=0)
-    align: Literal["end", "start"] = "end"
+    align: Literal["start", "end"] = "start"
+    origins: list[int | str] | Literal["from_file"] | None = None
+    first_origin: int | str | None = None
 
     @field_validator("train", mode="before")
     @classmethod
     def _train_count_or_share(cls, v: Any) -> int | str:
         if isinstance(v, bool):
-            raise ValueError(f'expected a count >= 1 or a share like "50%", got {json.dumps(v)}')
+            raise ValueError(f'expected a count >= 1 or a share like "50%", got {brief(v)}')
         if isinstance(v, int) and v >= 1:
             return v
         if isinstance(v, str):
             m = _SHARE.match(v)
             if m and 0 < float(m.group(1)) < 100:
                 return f"{float(m.group(1)):g}%"
-        raise ValueError(f'expected a count >= 1 or a share like "50%", got {json.dumps(v)}')
+        raise ValueError(f'expected a count >= 1 or a share like "50%", got {brief(v)}')
 
-    def train_length(self, n: int) -> int:
-        """Training length for a series of ``n`` observations (a share is rounded down)."""
+    @field_validator("first_origin", mode="before")
+    @classmethod
+    def _first_origin_is_a_time(cls, v: Any) -> Any:
+        return None if v is None else _config_time(v)
+
+    @field_validator("origins", mode="before")
+    @classmethod
+    def _origins_are_times(cls, v: Any) -> Any:
+        if v is None or v == FROM_FILE:
+            return v
+        if not isinstance(v, list) or not v:
+            raise ValueError(
+                f"expected a non-empty list of times or {FROM_FILE}, got {_shown(v)}"
+            )
+        times = [_config_time(x) for x in v]
+        seen: set[Any] = set()
+        for t in times:
+            if t in seen:
+                raise ValueError(f"origin {t} is listed twice")
+            seen.add(t)
+        return times
+
+    @model_validator(mode="after")
+    def _one_way_to_place_origins(self) -> WindowsConfig:
+        if self.origins is not None and self.first_origin is not None:
+            raise ValueError("origins and first_origin exclude each other; keep one")
+        given = "origins" if self.origins is not None else "first_origin"
+        if self.align == "end" and (self.origins is not None or self.first_origin is not None):
+            raise ValueError(
+                f"{given} places origins on the dataset's time axis; it cannot be combined "
+                "with align: end (remove align or the origins)"
+            )
+        return self
+
+    def train_length(self, span: int) -> int:
+        """Training length on a time axis of ``span`` steps (a share is rounded down)."""
         if isinstance(self.train, int):
             return self.train
-        return max(1, int(n * float(self.train[:-1]) / 100.0 + 1e-9))
+        return max(1, int(span * float(self.train[:-1]) / 100.0 + 1e-9))
+
+
+def _shown(v: Any) -> str:
+    try:
+        return json.dumps(v)
+    except TypeError:
+        return repr(v)
+
+
+def _config_time(v: Any) -> int | str:
+    """A time written in the config: a whole number, or a date / date-time kept as ISO text."""
+    import datetime as dt
+
+    if isinstance(v, bool):
+        raise ValueError(f"expected a date or a whole number, got {json.dumps(v)}")
+    if isinstance(v, int):
+        return v
+    if isinstance(v, dt.datetime):
+        return v.isoformat()
+    if isinstance(v, dt.date):
+        return v.isoformat()
+    if isinstance(v, str):
+        import pandas as pd
+
+        try:
+            stamp = pd.Timestamp(v.strip())
+        except (ValueError, TypeError):
+            stamp = None
+        if stamp is not None and not pd.isna(stamp):
+            return v.strip()
+    raise ValueError(f"expected a date or a whole number, got {_shown(v)}")
+
+
+def check_jobs(v: int) -> int:
+    """``jobs`` as the config, ``--jobs`` and the execution API all accept it: >= 1, or -1 for
+    every core; raises ``ValueError`` otherwise."""
+    if v == 0 or v < -1:
+        raise ValueError(f"expected a worker count >= 1 or -1 for all cores, got {v}")
+    return v
 
 
 class ExecutionConfig(_Strict):
@@ -148,21 +256,19 @@ class ExecutionConfig(_Strict):
     engine: Literal["local", "dask"] = "local"
     address: str | None = None
     cache: str | Literal[False] = "results/.cache"
-    fit_timeout: float = Field(default=120.0, gt=0)
+    fit_timeout: float = Field(default=120.0, gt=0, allow_inf_nan=False)
     on_error: Literal["record", "stop"] = "record"
 
     @field_validator("jobs")
     @classmethod
     def _jobs_nonzero(cls, v: int) -> int:
-        if v == 0 or v < -1:
-            raise ValueError(f"expected a worker count >= 1 or -1 for all cores, got {v}")
-        return v
+        return check_jobs(v)
 
     @field_validator("cache", mode="before")
     @classmethod
     def _cache_path_or_false(cls, v: Any) -> Any:
-        if v is True:
-            raise ValueError("expected a folder path or false, got true")
+        if not (v is False or isinstance(v, str)):
+            raise ValueError(f"expected a folder path or false, got {brief(v)}")
         return v
 
 
@@ -181,7 +287,8 @@ class ModelConfig(_Strict):
     """A candidate forecaster; ``grid`` expands it into one candidate per combination."""
 
     name: str
-    kind: Literal["arima", "ets", "theta", "arima_search", "plugin"]
+    #: a kind of :data:`runner.forecasters.registry.KINDS`, or ``plugin`` / ``panel_plugin``
+    kind: str
     params: dict[str, Any] = Field(default_factory=dict)
     grid: dict[str, list[Any]] = Field(default_factory=dict)
     entry: str | None = None
@@ -203,17 +310,17 @@ class ModelConfig(_Strict):
     def _grid_lists_not_empty(cls, v: dict[str, list[Any]]) -> dict[str, list[Any]]:
         for key, values in v.items():
             if not values:
-                raise ValueError(f"grid key {key!r}: expected a non-empty list of values")
+                raise ValueError(f"grid key {brief(key)}: expected a non-empty list of values")
         return v
 
     @model_validator(mode="after")
     def _entry_for_plugins(self) -> ModelConfig:
-        if self.kind == "plugin" and not self.entry:
-            raise ValueError('kind plugin needs entry: "module:attribute"')
-        if self.kind != "plugin" and self.entry:
-            raise ValueError(f"entry is only for kind plugin, not {self.kind}")
+        if self.kind in ENTRY_KINDS and not self.entry:
+            raise ValueError(f'kind {self.kind} needs entry: "module:attribute"')
+        if self.kind not in ENTRY_KINDS and self.entry:
+            raise ValueError(f"entry is only for kind plugin or panel_plugin, not {self.kind}")
         if self.entry and not re.match(r"^[\w.]+:[\w.]+$", self.entry):
-            raise ValueError(f'entry: expected "module:attribute", got {self.entry!r}')
+            raise ValueError(f'entry: expected "module:attribute", got {brief(self.entry)}')
         for key in list(self.params) + list(self.grid):
             new = RENAMED_PARAMS.get(self.kind, {}).get(key)
             if new is not None:
@@ -221,7 +328,7 @@ class ModelConfig(_Strict):
                 raise ValueError(f"{where}.{key} of {self.kind} is now called {new!r}")
         overlap = sorted(set(self.params) & set(self.grid))
         if overlap:
-            raise ValueError(f"{overlap[0]!r} is in both params and grid; keep one")
+            raise ValueError(f"{brief(overlap[0])} is in both params and grid; keep one")
         return self
 
 
@@ -237,17 +344,21 @@ class Config(_Strict):
 
     experiment: str
     description: str | None = None
-    seed: int = 0
     horizon: int = Field(ge=1)
     season: int | None = Field(default=None, ge=1)
     datasets: list[DatasetConfig] = Field(min_length=1)
     windows: WindowsConfig
     baselines: list[BaselineSpec] | None = None
     models: list[ModelConfig] = Field(default_factory=list)
-    metrics: list[str] = Field(default_factory=lambda: list(DEFAULT_METRICS))
-    rank_by: str = "mase"
+    #: None: the metric table's defaults (filled in by :func:`runner.pipeline.prepare`).
+    metrics: list[str] | None = None
+    #: None: mase if listed, else the first listed metric that can rank (resolved by
+    #: :func:`runner.pipeline.prepare`, which says so in a note).
+    rank_by: str | None = None
     reference: str | None = None
     intervals: list[float] = Field(default_factory=list)
+    #: series attributes (or derived segments) the results are also given by
+    segments: list[str] = Field(default_factory=list)
     execution: ExecutionConfig = Field(default_factory=ExecutionConfig)
     output: OutputConfig = Field(default_factory=OutputConfig)
 
@@ -262,34 +373,44 @@ class Config(_Strict):
         if v is None:
             return None
         if not isinstance(v, list):
-            raise ValueError(f"expected a list of baseline names, got {json.dumps(v)}")
+            raise ValueError(f"expected a list of baseline names, got {brief(v)}")
         out = []
         for item in v:
             if isinstance(item, str):
                 kind, params = item, {}
             elif isinstance(item, dict) and len(item) == 1:
                 kind, params = next(iter(item.items()))
-                params = params or {}
+                # `- naive:` (no value) is read as null; any other non-mapping is a mistake
+                params = {} if params is None else params
                 if not isinstance(params, dict):
-                    raise ValueError(f"{kind}: expected a mapping of parameters, got {params!r}")
+                    raise ValueError(
+                        f"{brief(kind)}: expected a mapping of parameters, got {brief(params)}"
+                    )
             else:
-                raise ValueError(f"expected a baseline name or {{name: {{params}}}}, got {item!r}")
+                raise ValueError(
+                    f"expected a baseline name or {{name: {{params}}}}, got {brief(item)}"
+                )
             if kind in RENAMED_KINDS:
                 raise ValueError(f"baseline {kind!r} is now called {RENAMED_KINDS[kind]!r}")
-            if kind not in BASELINE_KINDS:
-                raise ValueError(
-                    f"unknown baseline {kind!r}; expected one of {', '.join(BASELINE_KINDS)}"
-                )
             out.append({"kind": kind, "params": params})
         return out
 
+    @model_validator(mode="before")
+    @classmethod
+    def _no_retired_keys(cls, data: Any) -> Any:
+        if isinstance(data, dict) and "seed" in data:
+            raise ValueError(
+                "seed: castgrid makes no random choice (every built-in forecaster and every "
+                "window is deterministic), so a seed would change nothing; remove the key, and "
+                "give a plugin that draws random numbers its own seed in its params"
+            )
+        return data
+
     @field_validator("metrics")
     @classmethod
-    def _known_metrics(cls, v: list[str]) -> list[str]:
-        known = POINT_METRICS + INTERVAL_METRICS
-        for m in v:
-            if m not in known:
-                raise ValueError(f"unknown metric {m!r}; expected some of {', '.join(known)}")
+    def _metrics_listed_once(cls, v: list[str] | None) -> list[str] | None:
+        if v is None:
+            return v
         if len(set(v)) != len(v):
             raise ValueError("a metric is listed twice")
         if not v:
@@ -300,8 +421,15 @@ class Config(_Strict):
     @classmethod
     def _levels_in_range(cls, v: list[float]) -> list[float]:
         for level in v:
-            if not 0 < level < 100:
-                raise ValueError(f"expected interval levels between 0 and 100, got {level:g}")
+            if 0 < level < 1:
+                # 0.8 is an 80% interval written as a fraction; read literally it is a 0.8%
+                # interval whose coverage is near 0, which no one means
+                raise ValueError(
+                    f"levels are percentages between 1 and 100; {level:g} looks like a "
+                    f"fraction: write {level * 100:g}"
+                )
+            if not 1 <= level < 100:
+                raise ValueError(f"expected interval levels between 1 and 100, got {level:g}")
         if len(set(v)) != len(v):
             raise ValueError("an interval level is listed twice")
         return sorted(float(x) for x in v)
@@ -311,28 +439,21 @@ class Config(_Strict):
         names = [d.name for d in self.datasets]
         dup = sorted({n for n in names if names.count(n) > 1})
         if dup:
-            raise ValueError(f"datasets: name {dup[0]!r} is used twice")
-        if self.rank_by not in self.metrics:
-            raise ValueError(f"rank_by: {self.rank_by!r} is not among metrics {self.metrics}")
-        if self.rank_by in INTERVAL_METRICS + ("r2",):
-            raise ValueError(
-                f"rank_by: {self.rank_by!r} cannot order a leaderboard; "
-                "expected a point error metric such as mase"
-            )
-        if set(self.metrics) & set(INTERVAL_METRICS) and not self.intervals:
-            raise ValueError("metrics: interval metrics need intervals: [levels]")
-        model_names = [c.name for c in candidate_specs(self)]
-        baseline_names = [b.name for b in baseline_specs(self)]
-        all_names = model_names + baseline_names
-        dup = sorted({n for n in all_names if all_names.count(n) > 1})
-        if dup:
-            raise ValueError(f"forecaster name {dup[0]!r} is used twice")
-        if self.reference is not None and self.reference not in baseline_names:
-            raise ValueError(
-                f"reference: {self.reference!r} is not one of the baselines "
-                f"({', '.join(baseline_names)})"
-            )
+            raise ValueError(f"datasets: name {brief(dup[0])} is used twice")
+        for i, name in enumerate(self.segments):
+            if name in self.segments[:i]:
+                raise ValueError(f"segments: {brief(name)} is listed twice")
+            if name not in DERIVED_SEGMENTS and not any(name in d.attributes
+                                                        for d in self.datasets):
+                raise ValueError(
+                    f"segments: {brief(name)} is neither a derived segment "
+                    f"({', '.join(DERIVED_SEGMENTS)}) nor in any dataset's attributes"
+                )
         return self
+
+    def dataset_segments(self, dataset: DatasetConfig) -> list[str]:
+        """The ``segments`` that apply to ``dataset``: the derived ones and its attributes."""
+        return [s for s in self.segments if s in DERIVED_SEGMENTS or s in dataset.attributes]
 
     def dataset_season(self, dataset: DatasetConfig) -> int | None:
         """Season length set by the config for ``dataset`` (None: derive from frequency)."""
@@ -351,58 +472,8 @@ class ForecasterSpec(BaseModel):
     entry: str | None = None
     #: True when the baseline list was not given and this one was added as a default.
     default: bool = False
-
-
-def _format_value(v: Any) -> str:
-    return json.dumps(v, separators=(",", ":")).replace('"', "")
-
-
-def baseline_specs(cfg: Config) -> list[ForecasterSpec]:
-    """The baselines of the run, in config order (every baseline when none are listed)."""
-    if cfg.baselines is None:
-        return [
-            ForecasterSpec(name=k, kind=k, role="baseline", params={}, default=True)
-            for k in BASELINE_KINDS
-        ]
-    out = []
-    for b in cfg.baselines:
-        name = b.kind
-        if b.params:
-            name += "[" + ",".join(f"{k}={_format_value(v)}" for k, v in b.params.items()) + "]"
-        out.append(ForecasterSpec(name=name, kind=b.kind, role="baseline", params=dict(b.params)))
-    return out
-
-
-def candidate_specs(cfg: Config) -> list[ForecasterSpec]:
-    """The candidate models after expanding every ``grid`` into its combinations."""
-    out = []
-    for m in cfg.models:
-        if not m.grid:
-            out.append(
-                ForecasterSpec(
-                    name=m.name, kind=m.kind, role="candidate", params=dict(m.params), entry=m.entry
-                )
-            )
-            continue
-        keys = list(m.grid)
-        for combo in itertools.product(*(m.grid[k] for k in keys)):
-            chosen = dict(zip(keys, combo))
-            label = ",".join(f"{k}={_format_value(v)}" for k, v in chosen.items())
-            out.append(
-                ForecasterSpec(
-                    name=f"{m.name}[{label}]",
-                    kind=m.kind,
-                    role="candidate",
-                    params={**m.params, **chosen},
-                    entry=m.entry,
-                )
-            )
-    return out
-
-
-def forecaster_specs(cfg: Config) -> list[ForecasterSpec]:
-    """Baselines then candidates: every forecaster the run evaluates."""
-    return baseline_specs(cfg) + candidate_specs(cfg)
+    #: True for benchmarks that need a season above 1 (seasonal naive, season average).
+    seasonal_only: bool = False
 
 
 def canonical_json(cfg: Config) -> str:

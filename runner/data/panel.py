@@ -21,7 +21,10 @@ written in the config), the column or series, and what was expected.
 
 from __future__ import annotations
 
+import csv
+import gzip
 import hashlib
+import io
 import math
 import re
 import warnings
@@ -29,6 +32,7 @@ from collections import Counter
 from dataclasses import dataclass, field
 from functools import cached_property
 from pathlib import Path
+from typing import Any
 
 import numpy as np
 import pandas as pd
@@ -36,7 +40,7 @@ import pandas.tseries.offsets as poff
 from pandas.tseries.frequencies import to_offset
 
 from runner.config import DatasetConfig
-from runner.errors import DataError
+from runner.errors import ConfigError, DataError
 
 #: Cell texts read as "no value" in value and time columns (CSV). Key columns keep every text
 #: as written, so that a region called "NA" stays a region.
@@ -73,6 +77,7 @@ _SEASONS: tuple[tuple[type, int], ...] = (
 )
 _YEARLY = (poff.YearBegin, poff.YearEnd, poff.BYearBegin, poff.BYearEnd)
 _DAY_NS = 86_400 * 10**9
+_INT_TIME_LIMIT = 2.0**62
 #: How many series a fill notice lists by name before summing up the rest.
 _NOTE_LIMIT = 10
 _FINGERPRINT_VERSION = b"castgrid-panel-1\0"
@@ -102,6 +107,9 @@ class Panel:
     fingerprint: str
     path: str
     notes: list[str] = field(default_factory=list)
+    #: series attributes by name: one text value per series, in key order
+    #: (filled by :func:`runner.data.attributes.attach_attributes`)
+    attributes: dict[str, np.ndarray] = field(default_factory=dict)
 
     @property
     def n_series(self) -> int:
@@ -140,23 +148,31 @@ class Panel:
         return t.astype(str)
 
 
-def load_panel(ds: DatasetConfig, base_dir: Path, default_season: int | None) -> Panel:
+def load_panel(
+    ds: DatasetConfig, base_dir: Path, default_season: int | None, *, entry: str | None = None
+) -> Panel:
     """Read the dataset ``ds`` and return its :class:`Panel`.
 
     ``base_dir`` is the folder of the config file (relative dataset paths are relative to it);
-    ``default_season`` is the config's top-level ``season``. Raises
-    :class:`~runner.errors.DataError` for every problem with the file or its contents.
+    ``default_season`` is the config's top-level ``season``; ``entry`` says where ``ds`` is
+    written (``configs/shop.yaml: datasets[0]``), so that a bad setting of the entry itself
+    is reported against the config. Raises :class:`~runner.errors.DataError` for every
+    problem with the file or its contents, :class:`~runner.errors.ConfigError` for a
+    ``frequency`` that is no frequency or does not apply.
     """
     path = Path(ds.path).expanduser()
     if not path.is_absolute():
         path = Path(base_dir) / path
     src = _Source(ds.path, wide=ds.layout == "wide")
+    src.entry = f"{entry}." if entry else f'dataset "{ds.name}": '
+    # A frequency that is no frequency is the config's problem: say so before reading data.
+    offset = None if ds.frequency is None else _parse_frequency(ds.frequency, src)
     frame = _read_table(path, ds, src)
     rows = _wide_rows(frame, ds, src) if ds.layout == "wide" else _long_rows(frame, ds, src)
     del frame
     rows.sort()
     _reject_duplicates(rows, src)
-    axis, frequency = _time_axis(rows, ds, src)
+    axis, frequency = _time_axis(rows, ds, offset, src)
     rows = _apply_missing_policy(rows, axis, ds, src)
     season = _resolve_season(ds, default_season, frequency, rows.is_date, src)
     times = rows.t.view("datetime64[ns]") if rows.is_date else rows.t
@@ -190,13 +206,19 @@ class _Source:
     label: str
     wide: bool
     notes: list[str] = field(default_factory=list)
+    entry: str = ""  # how messages name the config entry: "c.yaml: datasets[0]."
 
     def fail(self, message: str) -> DataError:
-        return DataError(f"{self.label}: {message}")
+        # One line, whatever the file holds: control characters (a quoted newline, a NUL)
+        # are shown escaped.
+        return DataError(_CONTROL.sub(_escape, f"{self.label}: {message}"))
+
+    def config_fail(self, key: str, message: str) -> ConfigError:
+        return ConfigError(f"{self.entry}{key}: {message}")
 
     def series(self, key: str) -> str:
         # In a wide file a series *is* a column, so name it the way the user sees it.
-        return f'column "{key}"' if self.wide else f'series "{key}"'
+        return f'column "{_shown(key)}"' if self.wide else f'series "{_shown(key)}"'
 
 
 @dataclass
@@ -234,6 +256,20 @@ class _Rows:
         return _time_text(t, self.is_date)
 
 
+#: Characters that break a line, or that a terminal would act on: shown escaped in messages.
+_CONTROL = re.compile("[\x00-\x1f\x7f-\x9f\u2028\u2029]")
+
+
+def _escape(m: re.Match) -> str:
+    return repr(m.group(0))[1:-1]
+
+
+def _shown(text: object, limit: int = 60) -> str:
+    """A value from the file as a message shows it: control characters escaped, long text cut."""
+    text = _CONTROL.sub(_escape, str(text))
+    return text if len(text) <= limit else text[: limit - 3] + "..."
+
+
 def _time_text(t: int | np.integer, is_date: bool) -> str:
     """One time for a message: an ISO date (or date-time), or an integer."""
     if not is_date:
@@ -268,8 +304,6 @@ def _read_table(path: Path, ds: DatasetConfig, src: _Source) -> pd.DataFrame:
         raise src.fail("expected a file, found a folder")
     try:
         columns = _header(path, kind)
-    except DataError:
-        raise
     except Exception as exc:  # any reader failure at this boundary is a bad file
         raise src.fail(f"cannot read file ({_reason(exc)})") from None
     if not columns:
@@ -277,38 +311,169 @@ def _read_table(path: Path, ds: DatasetConfig, src: _Source) -> pd.DataFrame:
     needed = _needed_columns(ds, columns, src)
     try:
         if kind == "parquet":
-            frame = pd.read_parquet(path, columns=needed, engine="pyarrow")
+            import pyarrow.parquet as pq
+
+            table = pq.read_table(path, columns=needed)
         else:
-            values = [c for c in needed if c not in ds.series_columns]
-            frame = pd.read_csv(
-                path,
-                usecols=needed,
-                dtype={c: str for c in ds.series_columns},
-                keep_default_na=False,
-                na_values={c: MISSING_TOKENS for c in values},
-                low_memory=False,
-            )
-    except Exception as exc:  # malformed rows, truncated gzip, damaged parquet, bad encoding
+            table = _read_csv(path, needed, ds, len(columns), src)
+        frame = _to_frame(table, ds, src)
+    except DataError:
+        raise
+    except Exception as exc:  # truncated gzip, damaged parquet, bad encoding
         raise src.fail(f"cannot read file ({_reason(exc)})") from None
     if len(frame) == 0:
         raise src.fail("no data rows")
     return frame
 
 
+def _open_text(path: Path) -> io.TextIOBase:
+    """The file as text (gzip undone), for the pure-Python header read and row scan."""
+    if path.name.lower().endswith(".gz"):
+        return gzip.open(path, "rt", encoding="utf-8-sig", newline="")
+    return open(path, encoding="utf-8-sig", newline="")
+
+
 def _header(path: Path, kind: str) -> list[str]:
+    """Column names exactly as the file has them (duplicates kept, nothing renamed)."""
     if kind == "parquet":
         import pyarrow.parquet as pq
 
         return [str(c) for c in pq.read_schema(path).names]
+    with _open_text(path) as fh:
+        for record in csv.reader(fh):
+            if record:  # blank lines before the header are skipped, as the reader does
+                return record
+    return []
+
+
+#: pyarrow's message for a row with the wrong number of fields.
+_RAGGED = re.compile(r"Expected (\d+) columns, got (\d+)")
+
+
+def _read_csv(
+    path: Path, needed: list[str], ds: DatasetConfig, width: int, src: _Source
+) -> Any:
+    """Read the ``needed`` columns with pyarrow's CSV reader (multi-threaded, gzip aware).
+
+    Every row must have as many fields as the header: a value written with an unquoted comma
+    (``1,234.5``) would otherwise shift or cut the row without a word. Key columns are read as
+    text; the missing-value tokens apply to every other column.
+    """
+    import pyarrow as pa
+    import pyarrow.csv as pcsv
+
     try:
-        return [str(c) for c in pd.read_csv(path, nrows=0).columns]
-    except pd.errors.EmptyDataError:
-        return []
+        return pcsv.read_csv(
+            path,
+            # Quoted values may hold line breaks, as RFC 4180 allows.
+            parse_options=pcsv.ParseOptions(newlines_in_values=True),
+            convert_options=pcsv.ConvertOptions(
+                include_columns=needed,
+                column_types={c: pa.string() for c in ds.series_columns},
+                null_values=MISSING_TOKENS,
+                # Key columns keep every text ("NA" is a region); other text columns get
+                # their missing tokens nulled in _to_frame.
+                strings_can_be_null=False,
+            ),
+        )
+    except pa.ArrowInvalid as exc:
+        # Not an invalid_row_handler: pyarrow decodes the row's text before calling it, and a
+        # row that is not UTF-8 would print a stray traceback from inside pyarrow.
+        m = _RAGGED.search(str(exc))
+        if m is None:
+            raise
+        raise _ragged_row(path, width, int(m.group(2)), src) from None
+
+
+def _ragged_row(path: Path, width: int, found: int, src: _Source) -> DataError:
+    """The error for a row whose field count differs from the header's, naming its line.
+
+    pyarrow reports the row but (reading in parallel) not where it is; a scan with Python's
+    csv module finds the first such line. It only runs on this error path.
+    """
+    line, text = None, ""
+    try:
+        with _open_text(path) as fh:
+            reader = csv.reader(fh)
+            header_seen = False
+            for record in reader:
+                if not record:
+                    continue
+                if not header_seen:
+                    header_seen = True
+                elif len(record) != width:
+                    line, found, text = reader.line_num, len(record), ",".join(record)
+                    break
+    except (csv.Error, OSError, UnicodeDecodeError, EOFError):
+        pass
+    where = f'line {line} ("{_shown(text)}")' if line is not None else "a row"
+    hint = "; quote values that contain commas" if found > width else ""
+    return src.fail(f"{where}: expected {width} fields as in the header, found {found}{hint}")
+
+
+def _type_problem(t: Any, role: str) -> str | None:
+    """Why a column of pyarrow type ``t`` cannot serve as ``role``, or None when it can.
+
+    Nested and binary types (Parquet lists, structs, raw bytes) never can; a time column
+    holds dates, date-times, whole numbers or text; a value column numbers, true/false or text
+    (text is then parsed, and any that is not a number is reported with its row).
+    """
+    import pyarrow as pa
+
+    types = pa.types
+    if types.is_binary(t) or types.is_large_binary(t):
+        return "not UTF-8 text"
+    text = types.is_string(t) or types.is_large_string(t) or types.is_null(t)
+    number = types.is_integer(t) or types.is_floating(t)
+    if role == "series":
+        ok = not types.is_nested(t)
+    elif role == "time":
+        ok = text or number or types.is_timestamp(t) or types.is_date(t) or types.is_boolean(t)
+    else:
+        ok = text or number or types.is_boolean(t) or types.is_decimal(t)
+        # Dates in a value column get their own message from _numeric.
+        ok = ok or types.is_timestamp(t) or types.is_date(t)
+    if ok:
+        return None
+    expected = {"series": "text or numbers", "time": "dates or whole numbers"}.get(role, "numbers")
+    found = "times of day without a date" if types.is_time(t) else f"values of type {t}"
+    return f"expected {expected}, found {found}"
+
+
+def _to_frame(table: Any, ds: DatasetConfig, src: _Source) -> pd.DataFrame:
+    """A pyarrow table as a DataFrame the loader's array stages accept, types checked first.
+
+    Dictionary columns are decoded, decimals become floats, dates become datetimes, and the
+    missing-value tokens in text columns (other than key columns) become nulls.
+    """
+    import pyarrow as pa
+    import pyarrow.compute as pc
+
+    keys = set(ds.series_columns)
+    tokens = pa.array(MISSING_TOKENS, type=pa.string())
+    arrays = []
+    for name, col in zip(table.column_names, table.columns):
+        if pa.types.is_dictionary(col.type):
+            col = col.cast(col.type.value_type)
+        role = "series" if name in keys else "time" if name == ds.time else "value"
+        problem = _type_problem(col.type, role)
+        if problem is not None:
+            raise src.fail(f'column "{name}": {problem}')
+        if pa.types.is_decimal(col.type):
+            col = col.cast(pa.float64())
+        elif pa.types.is_large_string(col.type):
+            col = col.cast(pa.string())
+        if role != "series" and pa.types.is_string(col.type):
+            col = pc.if_else(pc.is_in(col, value_set=tokens), pa.scalar(None, pa.string()), col)
+        arrays.append(col)
+    table = pa.table(arrays, names=table.column_names)
+    # date_as_object=False: dates become datetime64, not Python date objects.
+    return table.to_pandas(date_as_object=False, ignore_metadata=True)
 
 
 def _reason(exc: Exception) -> str:
     text = " ".join(str(exc).split()) or type(exc).__name__
-    if isinstance(exc, UnicodeDecodeError):
+    if isinstance(exc, UnicodeDecodeError) or "invalid UTF8" in text:
         text = "not UTF-8 text"
     return text if len(text) <= 160 else text[:157] + "..."
 
@@ -326,12 +491,24 @@ def _needed_columns(ds: DatasetConfig, columns: list[str], src: _Source) -> list
         if col in roles:
             raise src.fail(f'column "{col}" is used twice (as {roles[col]} and as {role})')
         roles[col] = role
-    shown = ", ".join(columns[:20]) + (
+    shown = ", ".join(_shown(c, 40) for c in columns[:20]) + (
         f", ... ({len(columns)} columns)" if len(columns) > 20 else ""
     )
     for col in wanted:
         if col not in columns:
             raise src.fail(f'column "{col}" not found (columns: {shown})')
+    # Two columns of one name: whichever one a reader picked, the other would be ignored
+    # without a word (a flag column scored as the target). Every column of a wide file is used.
+    at: dict[str, list[int]] = {}
+    for i, col in enumerate(columns, 1):
+        at.setdefault(col, []).append(i)
+    for col in columns if ds.layout == "wide" else wanted:
+        if len(at[col]) > 1:
+            places = ", ".join(str(i) for i in at[col])
+            raise src.fail(
+                f'column "{col}" appears {len(at[col])} times in the header (columns {places}); '
+                "rename or drop all but one"
+            )
     if ds.layout == "wide":
         if len(columns) < 2:
             raise src.fail(f'layout wide needs series columns besides "{ds.time}"')
@@ -409,7 +586,8 @@ def _numeric(col: pd.Series, name: str, src: _Source) -> np.ndarray:
         if bad.any():
             i = int(np.argmax(bad))
             raise src.fail(
-                f'column "{name}": expected numbers, found "{col.iloc[i]}" (row {i + 1})'
+                f'column "{name}": expected numbers, found "{_shown(col.iloc[i])}" '
+                f"(row {i + 1})"
             )
     inf = np.isinf(out)
     if inf.any():
@@ -426,17 +604,18 @@ def _parse_times(col: pd.Series, name: str, src: _Source) -> tuple[np.ndarray, b
     dtype = col.dtype
     if pd.api.types.is_bool_dtype(dtype):
         raise src.fail(f'column "{name}": expected dates or whole numbers, found true/false')
-    if pd.api.types.is_integer_dtype(dtype):
-        return col.to_numpy(dtype=np.int64), False
-    if pd.api.types.is_float_dtype(dtype):
+    if pd.api.types.is_integer_dtype(dtype) or pd.api.types.is_float_dtype(dtype):
+        # Whole numbers within +-2**62, so that differences of two times fit in int64.
         x = col.to_numpy(dtype=np.float64)
-        frac = x != np.round(x)
-        if frac.any():
-            i = int(np.argmax(frac))
+        bad = ~np.isfinite(x) | (x != np.round(x)) | (np.abs(x) > _INT_TIME_LIMIT)
+        if bad.any():
+            i = int(np.argmax(bad))
+            limit = " (at most 18 digits)" if np.abs(x[i]) > _INT_TIME_LIMIT else ""
             raise src.fail(
-                f'column "{name}": expected dates or whole numbers, found {x[i]} (row {i + 1})'
+                f'column "{name}": expected dates or whole numbers{limit}, found {col.iloc[i]} '
+                f"(row {i + 1})"
             )
-        return x.astype(np.int64), False
+        return col.to_numpy(dtype=np.int64), False
     if pd.api.types.is_datetime64_any_dtype(dtype):
         idx = pd.DatetimeIndex(col)
     else:
@@ -447,7 +626,9 @@ def _parse_times(col: pd.Series, name: str, src: _Source) -> tuple[np.ndarray, b
         if bad.any():
             bad_rows = bad[codes]
             i = int(np.argmax(bad_rows))
-            raise src.fail(f'column "{name}": expected dates, found "{col.iloc[i]}" (row {i + 1})')
+            raise src.fail(
+                f'column "{name}": expected dates, found "{_shown(col.iloc[i])}" (row {i + 1})'
+            )
         idx = parsed[codes]
     if idx.tz is not None:
         idx = idx.tz_convert("UTC").tz_localize(None)
@@ -561,16 +742,22 @@ class _Axis:
         return self.first[sid] + pos * self.unit
 
 
-def _time_axis(rows: _Rows, ds: DatasetConfig, src: _Source) -> tuple[_Axis, str | None]:
-    """Place every row on a step axis; returns the axis and the frequency alias (dates)."""
+def _time_axis(
+    rows: _Rows, ds: DatasetConfig, offset: poff.BaseOffset | None, src: _Source
+) -> tuple[_Axis, str | None]:
+    """Place every row on a step axis; returns the axis and the frequency alias (dates).
+
+    ``offset`` is the config's frequency (None: inferred from the dates).
+    """
     starts = rows.offsets[:-1]
     counts = np.diff(rows.offsets)
     same = rows.sid[1:] == rows.sid[:-1]
     if not rows.is_date:
         if ds.frequency is not None:
-            raise src.fail(
-                f'column "{ds.time}" holds whole numbers; frequency applies to dates only '
-                "(remove it)"
+            raise src.config_fail(
+                "frequency",
+                f'column "{ds.time}" of {ds.path} holds whole numbers; frequency applies to '
+                "dates only (remove it)",
             )
         diffs = (rows.t[1:] - rows.t[:-1])[same]
         unit = int(np.gcd.reduce(diffs)) if len(diffs) else 1
@@ -579,12 +766,9 @@ def _time_axis(rows: _Rows, ds: DatasetConfig, src: _Source) -> tuple[_Axis, str
         _require_one_step(rows, axis, same, counts, src, f"time step {axis.unit}")
         return axis, None
 
-    if ds.frequency is not None:
-        offset = _parse_frequency(ds.frequency, src)
-        inferred = False
-    else:
+    inferred = offset is None
+    if offset is None:
         offset = _infer_frequency(rows, counts, ds, src)
-        inferred = True
     axis = _date_axis(rows, offset, src)
     if inferred:
         _require_one_step(rows, axis, same, counts, src, f"frequency {offset.freqstr}")
@@ -608,9 +792,10 @@ def _parse_frequency(text: str, src: _Source) -> poff.BaseOffset:
         else:
             src.notes.append(f'frequency "{text}" read as "{modern}" (its current pandas name)')
             return offset
-    raise src.fail(
-        f"frequency: expected a pandas offset alias such as D, B, W-SUN, MS, ME, QS, YS or h, "
-        f'got "{text}"'
+    raise src.config_fail(
+        "frequency",
+        "expected a pandas offset alias such as D, B, W-SUN, MS, ME, QS, YS or h, got "
+        f'"{_shown(text, 40)}"',
     )
 
 

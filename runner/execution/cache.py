@@ -1,8 +1,9 @@
 """The forecast cache: one SQLite file of finished forecasts, keyed by everything they depend on.
 
-A task's key is a SHA-256 over the forecaster's identity (kind, entry, canonical parameters,
-implementation version: :func:`runner.forecasters.registry.identity`), the training values it saw
-(raw float64 bytes, after its gaps were filled from the slice alone:
+A task's key (:mod:`runner.execution.cache_keys`) is a SHA-256 over the forecaster's identity
+(kind, entry, canonical parameters, implementation version:
+:func:`runner.forecasters.registry.identity`), the training values it saw (raw float64 bytes, after
+its gaps were filled from the slice alone:
 :func:`runner.execution.tasks.training_values`), the covariates it saw (training and test
 block, only for forecasters that are given covariates), the horizon, the season, the gap
 between training end and test block, and the interval levels. The position of a slice in its
@@ -22,26 +23,24 @@ series every time. Failures that may come from the machine are never stored and 
 again next run: ``timeout`` and ``crash``, and errors of the kinds listed in
 :data:`TRANSIENT_ERRORS` (memory, files, imports).
 
-``castgrid cache info`` and ``castgrid cache prune CONFIG...`` are :func:`main`.
+``castgrid cache info`` and ``castgrid cache prune CONFIG...`` are :mod:`runner.cli.cache`.
 """
 
 from __future__ import annotations
 
-import hashlib
 import json
 import os
 import sqlite3
-import struct
 import sys
 import time
 from collections.abc import Iterable, Sequence
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
-if TYPE_CHECKING:  # the command line imports this module at start: keep it light
-    import numpy as np
+from runner.execution.cache_keys import task_keys
 
-    from runner.execution.tasks import ModelTask, SharedData, TaskOutcome
+if TYPE_CHECKING:  # the command line imports this module at start: keep it light
+    from runner.execution.tasks import SharedData, Task, TaskOutcome
 
 CACHE_FILE = "forecasts.sqlite"
 #: Bump when the key or the row layout changes; an older file is then set aside and rebuilt.
@@ -49,7 +48,6 @@ SCHEMA_VERSION = "2"
 #: How long a writer waits for another run holding the write lock (milliseconds).
 BUSY_TIMEOUT_MS = 60_000
 _SQLITE_HEADER = b"SQLite format 3\x00"
-_KEY_PREFIX = b"castgrid-forecast-key\x00v1\x00"
 _LOOKUP_CHUNK = 500
 #: Failure reasons worth storing: the same forecaster on the same data fails the same way.
 STORED_FAILURES = ("error", "invalid-output")
@@ -93,68 +91,33 @@ def cache_file(folder: str | Path) -> Path:
     return Path(folder) / CACHE_FILE
 
 
-# ----------------------------------------------------------------------------- keys
+def check_cache_folder(folder: str | Path) -> None:
+    """Raise :class:`~runner.errors.PathError` when the cache in ``folder`` cannot be used.
 
-
-def _digest(*parts: bytes | memoryview) -> bytes:
-    h = hashlib.sha256()
-    for part in parts:
-        h.update(struct.pack("<Q", len(part)))
-        h.update(part)
-    return h.digest()
-
-
-def _array_bytes(a: np.ndarray) -> bytes:
-    import numpy as np
-
-    a = np.ascontiguousarray(a, dtype=np.float64)
-    return struct.pack("<Q", a.ndim) + struct.pack(f"<{a.ndim}Q", *a.shape) + a.tobytes()
-
-
-def task_keys(tasks: Sequence[ModelTask], shared: SharedData) -> list[bytes]:
-    """The cache key of every task (32 bytes each), in task order.
-
-    Slices shared by many forecasters are hashed once.
+    Run before any computing: the folder (or its nearest existing ancestor, where it will be
+    made) must be a writable folder, and the cache file, if there is one, a writable file.
     """
-    import numpy as np
+    from runner.errors import PathError
 
-    from runner.execution.tasks import training_values
-    from runner.forecasters.registry import accepts_covariates, identity
-
-    idents: dict[int, tuple[bytes, bool]] = {}
-    value_digests: dict[tuple[int, int, int], bytes] = {}
-    cov_digests: dict[tuple[int, int, int, int], bytes] = {}
-    h = shared.horizon
-    levels = np.asarray(shared.levels, dtype=np.float64).tobytes()
-    keys = []
-    for task in tasks:
-        if task.forecaster not in idents:
-            spec = shared.forecasters[task.forecaster]
-            idents[task.forecaster] = (
-                identity(spec).encode(), accepts_covariates(spec)
-            )
-        ident, uses_cov = idents[task.forecaster]
-        vk = (task.dataset, task.start, task.end)
-        if vk not in value_digests:
-            # what the forecaster sees: the slice with its gaps filled from the slice alone
-            y = np.ascontiguousarray(training_values(task, shared), dtype=np.float64)
-            value_digests[vk] = _digest(memoryview(y).cast("B"))
-        cov_digest = b"not-given"
-        cov = shared.covariates[task.dataset]
-        if uses_cov and cov is not None:
-            ck = (task.dataset, task.start, task.end, task.test_start)
-            if ck not in cov_digests:
-                cov_digests[ck] = _digest(
-                    _array_bytes(cov[task.start : task.end]),
-                    _array_bytes(cov[task.end : task.test_start + h]),
-                )
-            cov_digest = cov_digests[ck]
-        numbers = struct.pack("<qqq", h, task.season, task.test_start - task.end)
-        keys.append(_digest(_KEY_PREFIX, ident, value_digests[vk], cov_digest, numbers, levels))
-    return keys
-
-
-# ----------------------------------------------------------------------------- the store
+    folder = Path(folder)
+    path = cache_file(folder)
+    advice = "set execution.cache to another folder or to false, or run with --no-cache"
+    if folder.exists() and not folder.is_dir():
+        raise PathError(f"{folder}: expected the forecast cache folder, found a file; {advice}")
+    if path.is_dir():
+        raise PathError(f"{path}: expected the forecast cache file, found a folder; {advice}")
+    if path.exists() and not os.access(path, os.R_OK | os.W_OK):
+        raise PathError(f"{path}: cannot write the forecast cache file (permission denied or "
+                        f"read-only); {advice}")
+    holder = folder.absolute()
+    while not holder.exists() and holder != holder.parent:
+        holder = holder.parent
+    if not holder.is_dir():
+        raise PathError(f"{holder}: expected a folder to hold the forecast cache, found a file; "
+                        f"{advice}")
+    if not os.access(holder, os.W_OK | os.X_OK):
+        raise PathError(f"{holder}: cannot write the forecast cache here (permission denied or "
+                        f"read-only); {advice}")
 
 
 def _move_aside(path: Path) -> Path:
@@ -420,9 +383,13 @@ def info_json(info: dict[str, Any]) -> str:
     return json.dumps(info, sort_keys=True, default=plain, allow_nan=True)
 
 
-def outcome_from_row(index: int, row: tuple[Any, ...], horizon: int, n_levels: int
-                     ) -> TaskOutcome | None:
-    """A cached outcome (``cached=True``), or None when the row does not fit this run."""
+def outcome_from_row(index: int, row: tuple[Any, ...], horizon: int, n_levels: int,
+                     rows: int | None = None) -> TaskOutcome | None:
+    """A cached outcome (``cached=True``), or None when the row does not fit this run.
+
+    ``rows`` is the number of series of a panel task's outcome (its arrays are then
+    ``(rows, horizon)`` and ``(levels, rows, horizon)``); None for a per-series task.
+    """
     import numpy as np
 
     from runner.execution.tasks import TaskOutcome
@@ -433,15 +400,17 @@ def outcome_from_row(index: int, row: tuple[Any, ...], horizon: int, n_levels: i
     if reason is not None:
         return TaskOutcome(index, None, None, None, reason=reason, message=message,
                            info=json.loads(info), seconds=float(seconds), cached=True)
-    if len(point) != 8 * horizon:
+    shape = (horizon,) if rows is None else (rows, horizon)
+    size = 8 * int(np.prod(shape))
+    if len(point) != size:
         return None
-    if len(lower) != 8 * horizon * n_levels or len(upper) != len(lower):
+    if len(lower) != size * n_levels or len(upper) != len(lower):
         return None
     return TaskOutcome(
         index,
-        np.frombuffer(point, dtype=np.float64).copy(),
-        np.frombuffer(lower, dtype=np.float64).reshape(n_levels, horizon).copy(),
-        np.frombuffer(upper, dtype=np.float64).reshape(n_levels, horizon).copy(),
+        np.frombuffer(point, dtype=np.float64).reshape(shape).copy(),
+        np.frombuffer(lower, dtype=np.float64).reshape(n_levels, *shape).copy(),
+        np.frombuffer(upper, dtype=np.float64).reshape(n_levels, *shape).copy(),
         info=json.loads(info),
         seconds=float(seconds),
         cached=True,
@@ -449,9 +418,12 @@ def outcome_from_row(index: int, row: tuple[Any, ...], horizon: int, n_levels: i
 
 
 def count_cached(
-    tasks: Sequence[ModelTask], shared: SharedData, cache_path: str | Path | None
+    tasks: Sequence[Task], shared: SharedData, cache_path: str | Path | None
 ) -> int:
-    """How many of ``tasks`` the cache in folder ``cache_path`` can serve (never changes it)."""
+    """How many of ``tasks`` the cache in folder ``cache_path`` can serve (never changes it).
+
+    Counted in (series, fold) tasks: a panel task counts once per series it forecasts.
+    """
     if cache_path is None or not tasks:
         return 0
     try:
@@ -463,9 +435,12 @@ def count_cached(
     if cache is None:
         return 0
     with cache:
+        from runner.execution.panel_tasks import PanelTask, panel_rows
+
         keys = task_keys(tasks, shared)
         found = cache.lookup(keys)
-        return sum(1 for k in keys if k in found)
+        return sum(panel_rows(t, shared) if isinstance(t, PanelTask) else 1
+                   for t, k in zip(tasks, keys) if k in found)
 
 
 # ----------------------------------------------------------------------------- command line

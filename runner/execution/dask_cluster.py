@@ -11,7 +11,7 @@ import tempfile
 import threading
 from collections.abc import Sequence
 
-from runner.execution.tasks import ModelTask, SharedData, TaskOutcome, failed
+from runner.execution.tasks import SharedData, Task, TaskOutcome, failed
 from runner.execution.workers import MAX_BATCH, OnDone, _Supervisor
 
 #: On a dask worker: (run id, thread id) -> supervisor of this thread's worker process.
@@ -51,7 +51,7 @@ def dask_cleanup(run_id: str) -> int:
 
 
 def dask_batch(
-    run_id: str, blob: bytes, batch: list[ModelTask], fit_timeout: float
+    run_id: str, blob: bytes, batch: list[Task], fit_timeout: float
 ) -> list[TaskOutcome]:
     """On a dask worker: run one batch in this thread's supervised worker process."""
     supervisor = _dask_supervisor(run_id, blob, fit_timeout)
@@ -66,7 +66,7 @@ def dask_batch(
 
 
 def run_dask(
-    tasks: Sequence[ModelTask],
+    tasks: Sequence[Task],
     shared: SharedData,
     jobs: int,
     address: str | None,

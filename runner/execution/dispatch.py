@@ -1,4 +1,4 @@
-"""Forecasts for the per-series model tasks of a run: cache look-up, execution, cache fill.
+"""Forecasts for the model tasks of a run: cache look-up, execution, cache fill.
 
 :func:`forecast_models` looks every task up in the forecast cache (:mod:`runner.execution.cache`),
 runs the rest (:mod:`runner.execution.engines`: in process, on local worker processes or on dask),
@@ -7,24 +7,31 @@ stores each success in the cache as soon as it arrives, and shows progress
 
 Tasks with the same cache key in one run (the same forecaster on identical training data, for
 example two series with the same history) are computed once and count as cached.
+
+The tasks are per-series (:class:`~runner.execution.tasks.ModelTask`) or panel tasks (one fit
+per dataset and origin, :class:`~runner.execution.panel_tasks.PanelTask`), which go through the
+same cache and engines; a panel outcome holds one row per series it forecast.
 """
 
 from __future__ import annotations
 
 import json
 from collections.abc import Callable, Sequence
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from pathlib import Path
+from typing import Any
 
 from runner.config import ExecutionConfig
 from runner.execution.engines import execute, not_run
 from runner.execution.progress import Progress
-from runner.execution.tasks import ModelTask, SharedData, TaskOutcome
+from runner.execution.tasks import ModelTask, SharedData, Task, TaskOutcome
 
 
 @dataclass
 class EngineCounts:
     """How the model tasks of a run were served; the four counts add up to the task count.
+
+    Counted in (series, fold) tasks: a panel task counts once per series it forecasts.
 
     ``computed``: forecast in this run; ``cached``: forecasts served from the cache (or from an
     identical task of this run); ``failed``: any failure reason but ``not-run``, including
@@ -37,6 +44,10 @@ class EngineCounts:
     cached: int = 0
     failed: int = 0
     not_run: int = 0
+
+    def __add__(self, other: EngineCounts) -> EngineCounts:
+        return EngineCounts(self.computed + other.computed, self.cached + other.cached,
+                            self.failed + other.failed, self.not_run + other.not_run)
 
 
 class _FromConfig:
@@ -56,8 +67,77 @@ def _normalise_info(outcome: TaskOutcome) -> None:
     outcome.info = json.loads(info_json(outcome.info))
 
 
+@dataclass
+class _Lookup:
+    """What the cache already knows about a run's tasks, and what is left to compute.
+
+    ``todo`` lists the positions to run; ``twins`` maps a position that runs to the later
+    positions with the same key (served from its outcome).
+    """
+
+    outcomes: list[TaskOutcome | None]
+    keys: list[bytes] = field(default_factory=list)
+    todo: list[int] = field(default_factory=list)
+    twins: dict[int, list[int]] = field(default_factory=dict)
+    cached_failures: int = 0
+
+
+def _rows(task: Task, shared: SharedData) -> int | None:
+    """Series in the task's outcome arrays: None for a per-series task (1-D arrays)."""
+    if isinstance(task, ModelTask):
+        return None
+    from runner.execution.panel_tasks import panel_rows
+
+    return panel_rows(task, shared)
+
+
+def _look_up(cache: Any, tasks: Sequence[Task], shared: SharedData) -> _Lookup:
+    from runner.execution.cache import outcome_from_row, task_keys
+
+    n = len(tasks)
+    found_all = _Lookup([None] * n)
+    if cache is None:
+        found_all.todo = list(range(n))
+        return found_all
+    found_all.keys = keys = task_keys(tasks, shared)
+    found = cache.lookup(keys)
+    first: dict[bytes, int] = {}
+    for pos, key in enumerate(keys):
+        row = found.get(key)
+        if row is not None:
+            outcome = outcome_from_row(tasks[pos].index, row, shared.horizon, len(shared.levels),
+                                       _rows(tasks[pos], shared))
+            if outcome is not None:
+                found_all.outcomes[pos] = outcome
+                found_all.cached_failures += not outcome.ok
+                continue
+        if key in first:
+            found_all.twins.setdefault(first[key], []).append(pos)
+        else:
+            first[key] = pos
+            found_all.todo.append(pos)
+    return found_all
+
+
+def _counts(
+    outcomes: Sequence[TaskOutcome], tasks: Sequence[Task], shared: SharedData
+) -> EngineCounts:
+    counts = EngineCounts()
+    for o, t in zip(outcomes, tasks):
+        n = _rows(t, shared) or 1
+        if o.reason == "not-run":
+            counts.not_run += n
+        elif not o.ok:
+            counts.failed += n
+        elif o.cached:
+            counts.cached += n
+        else:
+            counts.computed += n
+    return counts
+
+
 def forecast_models(
-    tasks: Sequence[ModelTask],
+    tasks: Sequence[Task],
     shared: SharedData,
     execution: ExecutionConfig,
     *,
@@ -66,6 +146,7 @@ def forecast_models(
     quiet: bool = False,
     cache_path: str | Path | None | _FromConfig = FROM_CONFIG,
     on_done: Callable[[TaskOutcome], None] | None = None,
+    label: str = "model tasks",
 ) -> tuple[list[TaskOutcome], EngineCounts]:
     """One outcome per task, in task order, and the computed / cached / failed counts.
 
@@ -73,93 +154,65 @@ def forecast_models(
     relative to the current directory). ``use_cache=False`` (``--no-cache``) neither reads nor
     writes it. ``jobs`` overrides ``execution.jobs``. With ``on_error: stop`` the list still has
     one outcome per task; tasks that did not run have reason ``not-run``. ``on_done`` is called
-    with each computed outcome as it arrives (in completion order).
+    with each computed outcome as it arrives (in completion order). ``label`` names the tasks
+    in the progress line.
     """
     if isinstance(cache_path, _FromConfig):
         cache_path = execution.cache_folder()
-    n = len(tasks)
-    outcomes: list[TaskOutcome | None] = [None] * n
-    counts = EngineCounts()
     cache = None
-    keys: list[bytes] = []
-    todo: list[int] = list(range(n))
-    twins: dict[int, list[int]] = {}  # position run -> later positions with the same key
-    cached_failures = 0
-    if use_cache and cache_path is not None and n:
-        from runner.execution.cache import ForecastCache, outcome_from_row, task_keys
+    if use_cache and cache_path is not None and tasks:
+        from runner.execution.cache import ForecastCache
 
         cache = ForecastCache.open(cache_path)
-        keys = task_keys(tasks, shared)
-        found = cache.lookup(keys)
-        first: dict[bytes, int] = {}
-        todo = []
-        for pos, key in enumerate(keys):
-            row = found.get(key)
-            if row is not None:
-                outcome = outcome_from_row(tasks[pos].index, row, shared.horizon,
-                                           len(shared.levels))
-                if outcome is not None:
-                    outcomes[pos] = outcome
-                    cached_failures += not outcome.ok
-                    continue
-            if key in first:
-                twins.setdefault(first[key], []).append(pos)
-            else:
-                first[key] = pos
-                todo.append(pos)
-    position = {tasks[p].index: p for p in todo}
-    progress = Progress(n, cached=n - len(todo) - sum(map(len, twins.values())), quiet=quiet)
-    progress.failed = cached_failures
-    kinds: dict[int, tuple[str, str]] = {}
-
-    def done(outcome: TaskOutcome) -> None:
-        pos = position[outcome.index]
-        _normalise_info(outcome)
-        if cache is not None:
-            f = tasks[pos].forecaster
-            if f not in kinds:
-                from runner.forecasters.registry import identity
-
-                spec = shared.forecasters[f]
-                kinds[f] = (spec.kind, identity(spec))
-            cache.add(keys[pos], kinds[f][0], kinds[f][1], outcome, shared.horizon,
-                      len(shared.levels))
-        progress.task_done(outcome.ok)
-        for _ in twins.get(pos, ()):
-            progress.task_done(outcome.ok)
-        if on_done is not None:
-            on_done(outcome)
-
     try:
-        ran = execute(
-            [tasks[p] for p in todo],
-            shared,
-            jobs=jobs if jobs is not None else execution.jobs,
-            engine=execution.engine,
-            address=execution.address,
-            fit_timeout=execution.fit_timeout,
-            on_error=execution.on_error,
-            on_done=done,
-        )
+        found = _look_up(cache, tasks, shared)
+        position = {tasks[p].index: p for p in found.todo}
+        served = len(tasks) - len(found.todo) - sum(map(len, found.twins.values()))
+        progress = Progress(len(tasks), cached=served, quiet=quiet, label=label)
+        progress.failed = found.cached_failures
+        identities: dict[int, tuple[str, str]] = {}
+
+        def done(outcome: TaskOutcome) -> None:
+            pos = position[outcome.index]
+            _normalise_info(outcome)
+            if cache is not None:
+                f = tasks[pos].forecaster
+                if f not in identities:
+                    from runner.forecasters.registry import identity
+
+                    spec = shared.forecasters[f]
+                    identities[f] = (spec.kind, identity(spec))
+                kind, ident = identities[f]
+                cache.add(found.keys[pos], kind, ident, outcome, shared.horizon,
+                          len(shared.levels))
+            for _ in range(1 + len(found.twins.get(pos, ()))):
+                progress.task_done(outcome.ok)
+            if on_done is not None:
+                on_done(outcome)
+
+        try:
+            ran = execute(
+                [tasks[p] for p in found.todo],
+                shared,
+                jobs=jobs if jobs is not None else execution.jobs,
+                engine=execution.engine,
+                address=execution.address,
+                fit_timeout=execution.fit_timeout,
+                on_error=execution.on_error,
+                on_done=done,
+            )
+        finally:
+            progress.close()
     finally:
-        progress.close()
         if cache is not None:
             cache.close()
-    for pos, outcome in zip(todo, ran):
+    outcomes = found.outcomes
+    for pos, outcome in zip(found.todo, ran):
         outcomes[pos] = outcome
-        for twin in twins.get(pos, ()):
+        for twin in found.twins.get(pos, ()):
             outcomes[twin] = _twin_of(outcome, tasks[twin].index)
     final = [o if o is not None else not_run(t.index) for t, o in zip(tasks, outcomes)]
-    for o in final:
-        if o.reason == "not-run":
-            counts.not_run += 1
-        elif not o.ok:
-            counts.failed += 1
-        elif o.cached:
-            counts.cached += 1
-        else:
-            counts.computed += 1
-    return final, counts
+    return final, _counts(final, tasks, shared)
 
 
 def _twin_of(outcome: TaskOutcome, index: int) -> TaskOutcome:

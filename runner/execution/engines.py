@@ -1,12 +1,19 @@
-"""Running the per-series model tasks: in this process, on local worker processes, or on dask.
+"""Running model tasks (per series, and panel tasks): in this process, on local worker processes,
+or on dask.
 
 Three ways, one result: every way produces the same :class:`~runner.execution.tasks.TaskOutcome`
-for the same task, since every fit goes through :func:`runner.execution.tasks.run_model_task`.
+for the same task, since every fit goes through :func:`runner.execution.tasks.run_task` (a
+per-series task, or a panel task: one fit per dataset and origin on every series).
 
-* ``jobs=1``: in this process, one task after another. A fit past ``fit_timeout`` is stopped by a
-  ``SIGALRM`` timer that raises inside it; this stops Python code and sleeps, not a fit stuck
-  inside a C extension, and a fit that kills the process takes the run with it. Use ``jobs >= 2``
-  (worker processes) for full isolation.
+* ``jobs=1``: one task after another. Built-in forecasters run in this process; a fit past
+  ``fit_timeout`` is stopped by a ``SIGALRM`` timer that raises inside it (this stops Python
+  code and sleeps, not a fit stuck inside a C extension). Plugin forecasters (``kind:
+  plugin`` and ``panel_plugin``) are code castgrid does not know, so they run in one
+  supervised worker process, as with ``jobs >= 2``: a plugin that ends its process
+  (``os._exit``, a crash in C code) or hangs in C code costs its task (reason ``crash`` or
+  ``timeout``), never the run. In-process guards cannot do this: ``os._exit`` skips
+  ``atexit`` handlers and ``finally`` blocks, so the run would end with its results unwritten
+  and whatever exit code the plugin chose.
 * ``jobs >= 2``, engine ``local``: worker processes supervised by this process. The data of the
   run (:class:`~runner.execution.tasks.SharedData`) is pickled once into a temporary file that each
   worker loads once at start; tasks then travel in batches, and each outcome comes back as soon as
@@ -30,8 +37,11 @@ from __future__ import annotations
 
 import os
 from collections.abc import Callable, Sequence
+from functools import partial
 
-from runner.execution.tasks import ModelTask, SharedData, TaskOutcome, failed
+from runner.config.model import check_jobs
+from runner.execution.tasks import SharedData, Task, TaskOutcome, failed
+from runner.forecasters.registry import PANEL_PLUGIN, PLUGIN
 
 OnDone = Callable[[TaskOutcome], None]
 
@@ -43,9 +53,7 @@ def resolve_jobs(jobs: int) -> int:
             return max(1, len(os.sched_getaffinity(0)))
         except AttributeError:  # not on Linux
             return max(1, os.cpu_count() or 1)
-    if jobs < 1:
-        raise ValueError(f"jobs: expected a worker count >= 1 or -1, got {jobs}")
-    return jobs
+    return check_jobs(jobs)
 
 
 def not_run(index: int) -> TaskOutcome:
@@ -54,7 +62,7 @@ def not_run(index: int) -> TaskOutcome:
 
 
 def execute(
-    tasks: Sequence[ModelTask],
+    tasks: Sequence[Task],
     shared: SharedData,
     *,
     jobs: int = 1,
@@ -85,12 +93,38 @@ def execute(
 
             run_dask(tasks, shared, n_jobs, address, fit_timeout, stop, on_done, results)
         elif n_jobs == 1 or len(tasks) == 1:
-            from runner.execution.serial import run_serial
-
-            run_serial(tasks, shared, fit_timeout, stop, on_done, results)
+            _one_at_a_time(tasks, shared, fit_timeout, stop, on_done, results)
         else:
             from runner.execution.workers import run_workers
 
             run_workers(tasks, shared, n_jobs, fit_timeout, stop, on_done, results)
     return [o if o is not None else not_run(t.index) for t, o in zip(tasks, results)]
 
+
+def _one_at_a_time(
+    tasks: Sequence[Task],
+    shared: SharedData,
+    fit_timeout: float,
+    stop: bool,
+    on_done: OnDone | None,
+    results: list[TaskOutcome | None],
+) -> None:
+    """``jobs=1``: built-in forecasters in this process, then plugins in one worker process."""
+    from runner.execution.serial import run_serial
+    from runner.execution.workers import run_workers
+
+    plugin = [shared.forecasters[t.forecaster].kind in (PLUGIN, PANEL_PLUGIN) for t in tasks]
+    parts = (
+        ([i for i, p in enumerate(plugin) if not p], run_serial),
+        ([i for i, p in enumerate(plugin) if p], partial(run_workers, jobs=1)),
+    )
+    for positions, runner in parts:
+        if not positions:
+            continue
+        part_results: list[TaskOutcome | None] = [None] * len(positions)
+        runner([tasks[i] for i in positions], shared, fit_timeout=fit_timeout, stop=stop,
+               on_done=on_done, results=part_results)
+        for i, outcome in zip(positions, part_results):
+            results[i] = outcome
+        if stop and any(o is not None and not o.ok for o in part_results):
+            return

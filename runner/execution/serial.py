@@ -9,7 +9,7 @@ import time
 from collections.abc import Callable, Sequence
 from typing import Any
 
-from runner.execution.tasks import ModelTask, SharedData, TaskOutcome, failed, run_model_task
+from runner.execution.tasks import SharedData, Task, TaskOutcome, failed, run_task
 
 OnDone = Callable[[TaskOutcome], None]
 
@@ -27,8 +27,8 @@ def timeout_outcome(index: int, fit_timeout: float, seconds: float) -> TaskOutco
     )
 
 
-def run_with_timer(task: ModelTask, shared: SharedData, fit_timeout: float) -> TaskOutcome:
-    """:func:`run_model_task` stopped by ``SIGALRM`` after ``fit_timeout`` seconds.
+def run_with_timer(task: Task, shared: SharedData, fit_timeout: float) -> TaskOutcome:
+    """:func:`run_task` stopped by ``SIGALRM`` after ``fit_timeout`` seconds.
 
     Only in the main thread of a POSIX process (elsewhere the task runs without a timer). The
     timer re-fires every half second, so a fit that swallows the first interruption is
@@ -36,7 +36,7 @@ def run_with_timer(task: ModelTask, shared: SharedData, fit_timeout: float) -> T
     """
     in_main = threading.current_thread() is threading.main_thread()
     if not hasattr(signal, "setitimer") or not in_main:
-        return run_model_task(task, shared)
+        return run_task(task, shared)
     armed = [True]
 
     def _alarm(signum: int, frame: Any) -> None:
@@ -48,7 +48,7 @@ def run_with_timer(task: ModelTask, shared: SharedData, fit_timeout: float) -> T
     try:
         try:
             signal.setitimer(signal.ITIMER_REAL, fit_timeout, 0.5)
-            return run_model_task(task, shared)
+            return run_task(task, shared)
         finally:
             armed[0] = False
             signal.setitimer(signal.ITIMER_REAL, 0)
@@ -70,7 +70,7 @@ def _blas_one_thread() -> Any:
 
 
 def run_serial(
-    tasks: Sequence[ModelTask],
+    tasks: Sequence[Task],
     shared: SharedData,
     fit_timeout: float,
     stop: bool,

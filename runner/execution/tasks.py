@@ -2,7 +2,9 @@
 
 Tasks and their outcomes are small records that cross process boundaries. The data they index
 (``SharedData``) is shipped to each worker once per run, never per task, and a task never
-raises: whatever goes wrong is returned as an outcome with a reason and a message.
+raises: whatever goes wrong is returned as an outcome with a reason and a message. The tasks of
+models trained across series (one per dataset, forecaster and origin) are
+:class:`runner.execution.panel_tasks.PanelTask`; :func:`run_task` runs either kind.
 """
 
 from __future__ import annotations
@@ -10,13 +12,16 @@ from __future__ import annotations
 import time
 import traceback
 from dataclasses import dataclass, field
-from typing import Any
+from typing import TYPE_CHECKING, Any, Union
 
 import numpy as np
 
 from runner.config import ForecasterSpec
 from runner.forecasters.contract import as_forecast
 from runner.forecasters.gaps import fill_slice, observed_count
+
+if TYPE_CHECKING:
+    from runner.execution.panel_tasks import PanelLayout, PanelTask
 
 
 @dataclass(frozen=True)
@@ -46,6 +51,12 @@ class SharedData:
     forecasters: list[ForecasterSpec]
     horizon: int
     levels: tuple[float, ...]
+    #: per dataset, what its panel tasks index into (None when it has no panel forecaster)
+    panels: list[PanelLayout | None] = field(default_factory=list)
+
+
+#: A task of either kind: per series (one fit per series and fold) or panel (one per origin).
+Task = Union[ModelTask, "PanelTask"]
 
 
 @dataclass
@@ -86,6 +97,23 @@ def training_values(task: ModelTask, shared: SharedData) -> np.ndarray:
     forecaster would see now.
     """
     return fill_slice(shared.values[task.dataset][task.start : task.end])
+
+
+def error_outcome(index: int, exc: BaseException, seconds: float) -> TaskOutcome:
+    """The failed outcome of a task whose forecaster raised ``exc`` (reason ``error``): the
+    exception's type and message, and the file and line it was raised at."""
+    last = traceback.extract_tb(exc.__traceback__)[-1:]
+    where = f" at {last[0].filename.rsplit('/', 1)[-1]}:{last[0].lineno}" if last else ""
+    return failed(index, "error", f"{type(exc).__name__}: {exc}{where}", seconds)
+
+
+def run_task(task: Task, shared: SharedData) -> TaskOutcome:
+    """Run a per-series or a panel task; never raises."""
+    if isinstance(task, ModelTask):
+        return run_model_task(task, shared)
+    from runner.execution.panel_tasks import run_panel_task
+
+    return run_panel_task(task, shared)
 
 
 def task_slices(
@@ -138,11 +166,7 @@ def run_model_task(task: ModelTask, shared: SharedData) -> TaskOutcome:
         steps = lead_steps(task, shared.horizon)
         raw = fitted.predict(steps, **predict_kwargs)
     except Exception as exc:
-        last = traceback.extract_tb(exc.__traceback__)[-1:]
-        where = f" at {last[0].filename.rsplit('/', 1)[-1]}:{last[0].lineno}" if last else ""
-        return failed(
-            task.index, "error", f"{type(exc).__name__}: {exc}{where}", time.perf_counter() - t0
-        )
+        return error_outcome(task.index, exc, time.perf_counter() - t0)
     try:
         fc = as_forecast(raw, steps, shared.levels)
     except ValueError as exc:

@@ -20,7 +20,7 @@ from pathlib import Path
 from typing import Any
 
 from runner.execution.serial import timeout_outcome
-from runner.execution.tasks import ModelTask, SharedData, TaskOutcome, failed, run_model_task
+from runner.execution.tasks import SharedData, Task, TaskOutcome, failed, run_task
 
 #: Largest number of tasks sent to a worker at once. Outcomes stream back one by one, so the
 #: batch size only bounds the dispatch overhead and the imbalance at the end of a run.
@@ -121,7 +121,7 @@ class _Supervisor:
     """Runs task positions on ``jobs`` worker processes, replacing any worker that fails."""
 
     def __init__(
-        self, tasks: Sequence[ModelTask], data_file: str, jobs: int, fit_timeout: float
+        self, tasks: Sequence[Task], data_file: str, jobs: int, fit_timeout: float
     ) -> None:
         self.tasks = tasks
         self.data_file = data_file
@@ -247,7 +247,7 @@ class _Supervisor:
 
 
 def run_workers(
-    tasks: Sequence[ModelTask],
+    tasks: Sequence[Task],
     shared: SharedData,
     jobs: int,
     fit_timeout: float,
@@ -308,7 +308,7 @@ def worker_main(read_fd: int, write_fd: int, data_file: str) -> None:
             if message[0] == "stop":
                 return
             for task in message[1]:
-                outcome = run_model_task(task, shared)
+                outcome = run_task(task, shared)
                 try:
                     data = pickle.dumps(("outcome", outcome), protocol=pickle.HIGHEST_PROTOCOL)
                 except Exception as exc:  # e.g. an info_ a plugin filled with unpicklable things

@@ -3,25 +3,40 @@
 Each method is implemented as published in Hyndman & Athanasopoulos, *Forecasting: Principles
 and Practice* (3rd ed., 2021), section 5.2 "Some simple forecasting methods" (mean, naive,
 seasonal naive, drift), with the prediction intervals of its section 5.5 table of benchmark
-forecast standard deviations:
+forecast standard deviations; the two moving averages take theirs from the constant-level
+model they are optimal for:
 
-=================  =========================================  ==========================
+=================  =========================================  ==============================
 method             point forecast for step h                  sigma_h
-=================  =========================================  ==========================
-mean               mean of y_1..y_T                           sigma * sqrt(1 + 1/T)
-naive              y_T                                        sigma * sqrt(h)
-seasonal naive     y_{T+h-m(k+1)}, k = floor((h-1)/m)         sigma * sqrt(k + 1)
-drift              y_T + h (y_T - y_1) / (T - 1)              sigma * sqrt(h (1 + h/(T-1)))
-=================  =========================================  ==========================
+=================  =========================================  ==============================
+mean               mean of y_1..y_T                           sigma sqrt(1 + 1/T)
+naive              y_T                                        sigma sqrt(h)
+seasonal naive     y_{T+h-m(k+1)}, k = floor((h-1)/m)         sigma sqrt(k + 1)
+drift              y_T + h (y_T - y_1) / (T - 1)              sigma sqrt(h (1 + h/(T-1)))
+moving average     mean (or median) of y_{T-k+1}..y_T         sigma_1 (the same for every h)
+season average     mean of y_{T-m+1}..y_T                     sigma_1 (the same for every h)
+=================  =========================================  ==============================
 
-sigma is the standard deviation of the method's in-sample residuals,
-``sqrt(sum(e_t^2) / (T - K - M))`` with K estimated parameters and M residuals the method
-cannot produce (the first one for naive and drift, the first m for seasonal naive). The drift
-row's ``T - 1`` follows from the variance of the drift estimate, sigma^2 / (T - 1).
+**One residual-variance convention for every built-in** (benchmarks and models alike, see
+:mod:`runner.forecasters.intervals`): sigma^2 = (sum of squared residuals) / (T - K), with T
+the number of one-step residuals the method produces on the training slice and K the number of
+parameters it estimated from it. Here: mean, residuals y_t - mean, T residuals, K = 1; naive,
+y_t - y_{t-1}, T - 1 residuals, K = 0; seasonal naive, y_t - y_{t-m}, T - m residuals, K = 0;
+drift, y_t - y_{t-1} - c, T - 1 residuals, K = 1 (c). The drift row's ``T - 1`` follows from
+the variance of the drift estimate, sigma^2 / (T - 1). It is the textbook's convention (FPP3
+5.5; FPP2 7.1 and 8.5 show the same divisor in its ETS and ARIMA output), chosen over maximum
+likelihood's divisor T because it is what the published tables use and because with many
+parameters (a seasonal ETS has m + 2) the ML divisor makes intervals visibly too narrow.
 
-Two more benchmarks practitioners use have no published interval formula and give no
-intervals: ``moving_average`` (mean, median or mode of the last ``size`` values, a moving
-average forecast) and ``season_average`` (the mean of the last full season for every step).
+Moving average and season average: under the model they are optimal for, independent values
+around a constant level (the constant-process model of the moving average, e.g. Montgomery,
+Jennings & Kulahci 2015, *Introduction to Time Series Analysis and Forecasting*, 2nd ed.,
+section 4.2, from memory), the forecast error y_{T+h} - (mean of the last k) has the same
+distribution for every h, with variance sigma^2 (1 + 1/k). sigma_1 is estimated directly as
+the root mean square of the method's own one-step in-sample errors e_t = y_t - (mean of
+y_{t-k}..y_{t-1}), t = k+1..T: T - k residuals, K = 0 (k is chosen, not estimated). The same
+holds for the moving median. The moving mode (meant for counts) gives no interval: a normal
+interval would misstate a discrete distribution, and no published one exists.
 
 Every method reads its training slice with the slice's missing values filled from the slice
 alone (:mod:`runner.forecasters.gaps`), exactly as the per-series models see it; a slice without
@@ -34,13 +49,13 @@ per-series protocol (``fit`` / ``predict``) so the conformance checks apply to t
 from __future__ import annotations
 
 from dataclasses import dataclass
-from statistics import NormalDist
 
 import numpy as np
 
 from runner.forecasters.contract import Forecast
 from runner.forecasters.gaps import SliceFill
-from runner.forecasters.slices import SliceSummary, chunks, padded, summarise
+from runner.forecasters.intervals import z_values
+from runner.forecasters.slices import CHUNK_ELEMENTS, SliceSummary, chunks, padded, summarise
 
 
 @dataclass
@@ -56,11 +71,6 @@ class BatchForecast:
     upper: np.ndarray
     ok: np.ndarray
     message: str = ""
-
-
-def _z(levels: tuple[float, ...]) -> np.ndarray:
-    """Standard normal quantiles of central intervals at ``levels`` percent."""
-    return np.array([NormalDist().inv_cdf(0.5 + lv / 200.0) for lv in levels])
 
 
 class _Baseline:
@@ -95,17 +105,19 @@ class _Baseline:
         fill = SliceFill(values)
         if summary is None:
             summary = summarise(fill, starts, ends, season)
-        point, sigma = self._point_and_sigma(fill, starts, ends, horizon, season, summary)
+        n_levels = len(levels)
+        point, sigma = self._point_and_sigma(
+            fill, starts, ends, horizon, season, summary, with_sigma=n_levels > 0
+        )
         long_enough = summary.length >= self.min_length(season)
         ok = long_enough & (summary.observed > 0)
         point[~ok] = np.nan
-        n_levels = len(levels)
         if sigma is None or n_levels == 0:
             lower = np.full((n_levels,) + point.shape, np.nan)
             upper = lower.copy()
         else:
             sigma[~ok] = np.nan
-            half = _z(levels)[:, None, None] * sigma[None, :, :]
+            half = z_values(levels)[:, None, None] * sigma[None, :, :]
             lower, upper = point[None] - half, point[None] + half
         message = (
             f"{type(self).__name__} needs at least {self.min_length(season)} training "
@@ -123,7 +135,13 @@ class _Baseline:
         horizon: int,
         season: int,
         s: SliceSummary,
+        with_sigma: bool = True,
     ) -> tuple[np.ndarray, np.ndarray | None]:
+        """Point forecasts (n, H) and forecast standard deviations (n, H), or None for none.
+
+        ``with_sigma`` is False when no interval is asked for; a method whose sigma is costly
+        may then skip it.
+        """
         raise NotImplementedError
 
     # ---- the per-series protocol (used by check_forecaster and by plugin-style callers)
@@ -184,7 +202,7 @@ class Naive(_Baseline):
     def __init__(self) -> None:
         pass
 
-    def _point_and_sigma(self, values, starts, ends, horizon, season, s):
+    def _point_and_sigma(self, values, starts, ends, horizon, season, s, with_sigma=True):
         point = np.repeat(s.last[:, None], horizon, axis=1)
         with np.errstate(invalid="ignore", divide="ignore"):
             sigma = np.sqrt(s.diff_sq / (s.length - 1))
@@ -207,7 +225,7 @@ class SeasonalNaive(_Baseline):
     def min_length(self, season: int) -> int:
         return max(int(season), 1)
 
-    def _point_and_sigma(self, values, starts, ends, horizon, season, s):
+    def _point_and_sigma(self, values, starts, ends, horizon, season, s, with_sigma=True):
         m = max(int(season), 1)
         h0 = np.arange(horizon)
         idx = ends[:, None] - m + (h0 % m)[None, :]
@@ -227,7 +245,7 @@ class Mean(_Baseline):
     def __init__(self) -> None:
         pass
 
-    def _point_and_sigma(self, values, starts, ends, horizon, season, s):
+    def _point_and_sigma(self, values, starts, ends, horizon, season, s, with_sigma=True):
         point = np.repeat(s.mean[:, None], horizon, axis=1)
         with np.errstate(invalid="ignore", divide="ignore"):
             sigma = np.sqrt(s.mean_sq / (s.length - 1)) * np.sqrt(1.0 + 1.0 / s.length)
@@ -247,7 +265,7 @@ class Drift(_Baseline):
     def min_length(self, season: int) -> int:
         return 2
 
-    def _point_and_sigma(self, values, starts, ends, horizon, season, s):
+    def _point_and_sigma(self, values, starts, ends, horizon, season, s, with_sigma=True):
         h = _steps(horizon)
         with np.errstate(invalid="ignore", divide="ignore"):
             slope = (s.last - s.first) / (s.length - 1)
@@ -258,8 +276,47 @@ class Drift(_Baseline):
         return point, sigma_h
 
 
+def moving_error_sigma(
+    values: np.ndarray | SliceFill, starts: np.ndarray, ends: np.ndarray, k: int,
+    stat: str = "mean",
+) -> np.ndarray:
+    """Root mean square of the one-step in-sample errors of a moving ``stat`` of ``k`` values.
+
+    For each slice, e_t = y_t - stat(y_{t-k}..y_{t-1}) for the T - k positions that have k
+    values before them; sigma = sqrt(sum e_t^2 / (T - k)) (K = 0: the window is chosen, not
+    estimated). NaN when the slice has no such position.
+    """
+    n = len(starts)
+    sse = np.zeros(n)
+    count = np.zeros(n)
+    width = int(np.max(ends - starts)) if n else 0
+    if width > k:
+        # The median copies every window, so the padded matrix times k must fit the budget.
+        rows = max(1, CHUNK_ELEMENTS // (width * (k + 1)))
+        for lo in range(0, n, rows):
+            part = slice(lo, min(n, lo + rows))
+            mat = padded(values, starts[part], ends[part])
+            windows = np.lib.stride_tricks.sliding_window_view(mat, k, axis=1)[:, :-1, :]
+            with np.errstate(invalid="ignore"):
+                centre = windows.mean(axis=2) if stat == "mean" else np.median(windows, axis=2)
+            err = mat[:, k:] - centre
+            finite = np.isfinite(err)
+            sse[part] = (np.where(finite, err, 0.0) ** 2).sum(axis=1)
+            count[part] = finite.sum(axis=1)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        sigma = np.sqrt(sse / count)
+    sigma[count < 1] = np.nan
+    return sigma
+
+
 class SeasonAverage(_Baseline):
-    """The mean of the last full season, for every step (no published interval formula)."""
+    """The mean of the last full season, for every step.
+
+    Its interval is the moving average's (module docstring) with a window of one season:
+    sigma_h = sigma_1, the root mean square of y_t - mean(y_{t-m}..y_{t-1}) over the slice.
+    """
+
+    version = "2"  # 2: prediction intervals
 
     def __init__(self) -> None:
         pass
@@ -267,19 +324,27 @@ class SeasonAverage(_Baseline):
     def min_length(self, season: int) -> int:
         return max(int(season), 1)
 
-    def _point_and_sigma(self, values, starts, ends, horizon, season, s):
+    def _point_and_sigma(self, values, starts, ends, horizon, season, s, with_sigma=True):
         m = max(int(season), 1)
         idx = ends[:, None] - m + np.arange(m)[None, :]
         last_season = _last_values(values, idx, starts, ends)
-        return np.repeat(last_season.mean(axis=1)[:, None], horizon, axis=1), None
+        point = np.repeat(last_season.mean(axis=1)[:, None], horizon, axis=1)
+        if not with_sigma:
+            return point, None
+        sigma = moving_error_sigma(values, starts, ends, m, "mean")
+        return point, np.repeat(sigma[:, None], horizon, axis=1)
 
 
 class MovingAverage(_Baseline):
     """The mean, median or mode of the last ``size`` values, for every step.
 
-    A moving-average forecast (no published interval formula). ``mode`` is the most frequent of
-    the ``size`` values, the smallest one on ties, and is meant for count data.
+    A moving-average forecast. ``mode`` is the most frequent of the ``size`` values, the
+    smallest one on ties, and is meant for count data. Intervals (mean and median): sigma_h =
+    sigma_1, the root mean square of the method's own one-step in-sample errors, as under the
+    constant-level model (module docstring); the mode gives none.
     """
+
+    version = "2"  # 2: prediction intervals (mean and median)
 
     def __init__(self, size: int = 3, stat: str = "mean") -> None:
         if isinstance(size, bool) or not isinstance(size, int) or size < 1:
@@ -292,7 +357,7 @@ class MovingAverage(_Baseline):
     def min_length(self, season: int) -> int:
         return self.size
 
-    def _point_and_sigma(self, values, starts, ends, horizon, season, s):
+    def _point_and_sigma(self, values, starts, ends, horizon, season, s, with_sigma=True):
         k = self.size
         out = np.empty(len(starts))
         for part in chunks(np.maximum(ends - k, starts), ends):
@@ -306,7 +371,11 @@ class MovingAverage(_Baseline):
                 srt = np.sort(win, axis=1)
                 counts = (srt[:, :, None] == srt[:, None, :]).sum(axis=2)
                 out[part] = srt[np.arange(len(srt)), counts.argmax(axis=1)]
-        return np.repeat(out[:, None], horizon, axis=1), None
+        point = np.repeat(out[:, None], horizon, axis=1)
+        if not with_sigma or self.stat == "mode":
+            return point, None
+        sigma = moving_error_sigma(values, starts, ends, k, self.stat)
+        return point, np.repeat(sigma[:, None], horizon, axis=1)
 
 
 __all__ = [
@@ -317,5 +386,6 @@ __all__ = [
     "SeasonAverage",
     "SeasonalNaive",
     "MovingAverage",
+    "moving_error_sigma",
     "padded",
 ]

@@ -8,7 +8,8 @@ every built-in forecaster. Each check is small, named and reported on its own::
     print(report)                               # one line per check: pass / fail / skip
     check_forecaster(MyForecaster, raise_on_failure=True)   # AssertionError naming failures
 
-The checks (``CHECKS``):
+The checks (``CHECKS``, in this order; each is a module-level ``check_<name>(subject)``
+function, and ``check_forecaster(obj, only=(name,))`` runs one by itself):
 
 ``protocol``                  fit and predict exist and take the protocol's keywords
 ``init_stores_params``        ``__init__`` declares each parameter by name (no ``*args`` or
@@ -37,33 +38,13 @@ from __future__ import annotations
 import copy
 import inspect
 import pickle
-from collections.abc import Callable, Iterator
-from contextlib import contextmanager
+from collections.abc import Callable
 from dataclasses import dataclass, field
 from typing import Any
 
 import numpy as np
 
-from runner.forecasters.contract import Forecast, as_forecast
-from runner.forecasters.validation import protocol_problem
-
-CHECKS: tuple[str, ...] = (
-    "protocol",
-    "init_stores_params",
-    "clone_equal_params",
-    "fit_returns_self",
-    "fit_keeps_params",
-    "fitted_attributes_underscore",
-    "predict_shape",
-    "no_input_mutation",
-    "picklable_unfitted",
-    "picklable_fitted",
-    "deterministic",
-    "refit_independent",
-    "too_short_series",
-    "intervals_ordered",
-    "covariates",
-)
+from runner.forecasters.contract import Forecast, as_forecast, protocol_problem
 
 
 @dataclass(frozen=True)
@@ -80,7 +61,7 @@ class CheckReport:
     """Every check's result for one forecaster."""
 
     forecaster: str
-    results: list[CheckResult] = field(default_factory=list)
+    checks: list[CheckResult] = field(default_factory=list)
 
     @property
     def passed(self) -> bool:
@@ -90,18 +71,18 @@ class CheckReport:
     @property
     def failed(self) -> list[str]:
         """Names of the failed checks, in check order."""
-        return [r.name for r in self.results if r.status == "fail"]
+        return [r.name for r in self.checks if r.status == "fail"]
 
     def result(self, name: str) -> CheckResult:
         """The result of the check called ``name``."""
-        for r in self.results:
+        for r in self.checks:
             if r.name == name:
                 return r
         raise KeyError(name)
 
     def __str__(self) -> str:
         lines = [f"check_forecaster: {self.forecaster}"]
-        for r in self.results:
+        for r in self.checks:
             tail = f": {r.message}" if r.message else ""
             lines.append(f"  {r.status.upper():4} {r.name}{tail}")
         return "\n".join(lines)
@@ -190,18 +171,319 @@ def _receives_covariates(obj: Any) -> bool:
     return bool(getattr(type(obj), "uses_covariates", True))
 
 
-@contextmanager
-def _check(report: CheckReport, name: str) -> Iterator[None]:
+@dataclass
+class Subject:
+    """What every check looks at: how to build a fresh forecaster, and the data to fit."""
+
+    label: str
+    fresh: Callable[[], Any]
+    y: np.ndarray
+    season: int
+    horizon: int
+    #: the params passed to a class or factory (None when an instance was given)
+    passed_values: dict[str, Any] | None
+
+    def fit_predict(self, m: Any, data: np.ndarray, levels: tuple[float, ...] = ()) -> Any:
+        """Fit ``m`` on ``data`` and forecast ``horizon`` steps."""
+        out = m.fit(data, season=self.season)
+        return (m if out is None else out).predict(self.horizon, levels=levels)
+
+
+#: The checks in the order they run; each is a module-level function taking a :class:`Subject`
+#: and raising to fail. :data:`CHECKS` (their names) is derived from this list.
+_CHECK_FUNCTIONS: list[Callable[[Subject], None]] = []
+
+
+def _conformance_check(fn: Callable[[Subject], None]) -> Callable[[Subject], None]:
+    _CHECK_FUNCTIONS.append(fn)
+    return fn
+
+
+def _check_name(fn: Callable[[Subject], None]) -> str:
+    return fn.__name__.removeprefix("check_")
+
+
+@_conformance_check
+def check_protocol(c: Subject) -> None:
+    """Fit and predict exist and take the protocol's keywords."""
+    problem = protocol_problem(c.fresh())
+    if problem:
+        raise _CheckFailed(problem)
+
+
+@_conformance_check
+def check_init_stores_params(c: Subject) -> None:
+    """`__init__` declares each parameter by name (no `*args` or `**kwargs`) and only stores it
+    under the same name."""
+    obj = c.fresh()
+    sig = inspect.signature(type(obj).__init__)
+    names = []
+    for name, p in list(sig.parameters.items())[1:]:
+        if p.kind in (p.VAR_POSITIONAL, p.VAR_KEYWORD):
+            star = "*" if p.kind is p.VAR_POSITIONAL else "**"
+            raise _CheckFailed(f"__init__ takes {star}{name}; declare each parameter by name")
+        names.append(name)
+        if not hasattr(obj, name):
+            raise _CheckFailed(f"parameter {name!r} is not stored as attribute {name!r}")
+        if c.passed_values is not None:
+            expected = c.passed_values.get(name, p.default)
+            if expected is not inspect.Parameter.empty and not _same(
+                getattr(obj, name), expected
+            ):
+                raise _CheckFailed(
+                    f"parameter {name!r} was given {expected!r} but stored "
+                    f"{getattr(obj, name)!r}; __init__ must store it unchanged"
+                )
+    state = vars(obj) if hasattr(obj, "__dict__") else {}
+    fitted = sorted(k for k in state if k.endswith("_") and not k.startswith("__"))
+    if fitted:
+        raise _CheckFailed(f"__init__ sets fitted attributes {fitted}; only fit should")
+    extra = sorted(k for k in state if not k.startswith("_") and k not in names)
+    if extra:
+        raise _CheckFailed(f"__init__ sets attributes that are not parameters: {extra}")
+
+
+@_conformance_check
+def check_clone_equal_params(c: Subject) -> None:
+    """Rebuilding from the parameters read off `__init__` gives an object with equal parameters."""
+    obj = c.fresh()
+    other = clone(obj)
+    if other is obj or type(other) is not type(obj):
+        raise _CheckFailed("clone did not build a new object of the same class")
+    a, b = get_params(obj), get_params(other)
+    bad = [k for k in a if not _same(a[k], b[k])]
+    if bad:
+        raise _CheckFailed(f"rebuilt from its parameters, {bad[0]!r} differs")
+
+
+@_conformance_check
+def check_fit_returns_self(c: Subject) -> None:
+    """`fit` returns the forecaster itself."""
+    m = c.fresh()
+    out = m.fit(c.y.copy(), season=c.season)
+    if out is not m:
+        raise _CheckFailed(f"fit returned {type(out).__name__}, expected the forecaster itself")
+
+
+@_conformance_check
+def check_fit_keeps_params(c: Subject) -> None:
+    """`fit` does not change the parameters."""
+    m = c.fresh()
+    before = copy.deepcopy(_params(m))
+    m.fit(c.y.copy(), season=c.season)
+    after = _params(m)
+    bad = [k for k in before if not _same(before[k], after[k])]
+    if bad:
+        raise _CheckFailed(f"fit changed parameter {bad[0]!r}; keep fitted state in name_")
+
+
+@_conformance_check
+def check_fitted_attributes_underscore(c: Subject) -> None:
+    """State set by `fit` is in names ending with `_`."""
+    m = c.fresh()
+    before = set(vars(m)) if hasattr(m, "__dict__") else set()
+    m.fit(c.y.copy(), season=c.season)
+    new = set(vars(m)) - before if hasattr(m, "__dict__") else set()
+    bad = sorted(k for k in new if not k.endswith("_") and not k.startswith("_"))
+    if bad:
+        raise _CheckFailed(f"fit set attributes {bad} whose names do not end with '_'")
+
+
+@_conformance_check
+def check_predict_shape(c: Subject) -> None:
+    """`predict(h)` gives `h` finite values (for h = 1 and h = 5)."""
+    for steps in (1, c.horizon):
+        m = c.fresh()
+        m.fit(c.y.copy(), season=c.season)
+        out = m.predict(steps)
+        try:
+            as_forecast(out, steps, ())
+        except ValueError as exc:
+            raise _CheckFailed(f"predict({steps}): {exc}") from None
+
+
+@_conformance_check
+def check_no_input_mutation(c: Subject) -> None:
+    """`fit` and `predict` leave the training array untouched."""
+    data = c.y.copy()
+    m = c.fresh()
+    m.fit(data, season=c.season)
+    m.predict(c.horizon)
+    if not np.array_equal(data, c.y):
+        raise _CheckFailed("fit or predict changed the training array passed in")
+
+
+@_conformance_check
+def check_picklable_unfitted(c: Subject) -> None:
+    """The unfitted forecaster survives pickling."""
+    m = c.fresh()
+    back = pickle.loads(pickle.dumps(m))
+    a, b = _params(m), _params(back)
+    bad = [k for k in a if not _same(a[k], b[k])]
+    if bad:
+        raise _CheckFailed(f"after pickling, parameter {bad[0]!r} differs")
+
+
+@_conformance_check
+def check_picklable_fitted(c: Subject) -> None:
+    """The fitted one too, and forecasts the same afterwards."""
+    m = c.fresh()
+    m.fit(c.y.copy(), season=c.season)
+    back = pickle.loads(pickle.dumps(m))
+    h = c.horizon
+    problem = _differs(_arrays(m.predict(h), h), _arrays(back.predict(h), h), exact=False)
+    if problem:
+        raise _CheckFailed(f"after pickling the fitted forecaster, {problem}")
+
+
+@_conformance_check
+def check_deterministic(c: Subject) -> None:
+    """Two fresh fits on the same data forecast bit-identically."""
+    a = _arrays(c.fit_predict(c.fresh(), c.y.copy(), (80.0,)), c.horizon)
+    b = _arrays(c.fit_predict(c.fresh(), c.y.copy(), (80.0,)), c.horizon)
+    problem = _differs(a, b, exact=True)
+    if problem:
+        raise _CheckFailed(f"two fits on the same data: {problem}")
+
+
+@_conformance_check
+def check_refit_independent(c: Subject) -> None:
+    """Fitting again on other data forgets the first fit."""
+    other = example_series(n=c.y.shape[0], season=c.season, seed=1)[::-1] * 1.5
+    m = c.fresh()
+    m.fit(other, season=c.season)
+    again = _arrays(c.fit_predict(m, c.y.copy()), c.horizon)
+    once = _arrays(c.fit_predict(c.fresh(), c.y.copy()), c.horizon)
+    problem = _differs(again, once, exact=False)
+    if problem:
+        raise _CheckFailed(f"a second fit still depends on the first: {problem}")
+
+
+@_conformance_check
+def check_too_short_series(c: Subject) -> None:
+    """An empty series raises `ValueError` with a message; series of 1 or 2 values either
+    forecast or raise `ValueError`."""
     try:
-        yield
-    except _Skip as exc:
-        report.results.append(CheckResult(name, "skip", str(exc)))
-    except _CheckFailed as exc:
-        report.results.append(CheckResult(name, "fail", str(exc)))
+        c.fresh().fit(np.empty(0), season=c.season)
+    except ValueError as exc:
+        if not str(exc).strip():
+            raise _CheckFailed("an empty series raised ValueError without a message") from None
     except Exception as exc:
-        report.results.append(CheckResult(name, "fail", f"raised {type(exc).__name__}: {exc}"))
+        raise _CheckFailed(
+            f"an empty series raised {type(exc).__name__} ({exc}); expected ValueError "
+            "with a message"
+        ) from None
     else:
-        report.results.append(CheckResult(name, "pass"))
+        raise _CheckFailed("an empty series was accepted; expected a ValueError")
+    for n in (1, 2):
+        try:
+            out = c.fit_predict(c.fresh(), c.y[:n].copy())
+        except ValueError as exc:
+            if not str(exc).strip():
+                raise _CheckFailed(f"{n} value(s): ValueError without a message") from None
+            continue
+        except Exception as exc:
+            raise _CheckFailed(
+                f"{n} value(s) raised {type(exc).__name__} ({exc}); expected a forecast or "
+                "a ValueError saying the series is too short"
+            ) from None
+        try:
+            as_forecast(out, c.horizon, ())
+        except ValueError as exc:
+            raise _CheckFailed(f"{n} value(s): {exc}; expected a ValueError instead") from None
+
+
+@_conformance_check
+def check_intervals_ordered(c: Subject) -> None:
+    """When intervals are returned: finite, lower <= point <= upper, and the 80% interval
+    inside the 95% one."""
+    out = c.fit_predict(c.fresh(), c.y.copy(), (80.0, 95.0))
+    if not isinstance(out, Forecast) or not out.lower:
+        raise _Skip("no intervals returned")
+    fc = as_forecast(out, c.horizon, (80.0, 95.0))
+    point = fc.point
+    tol = 1e-9 * max(1.0, float(np.max(np.abs(point))))
+    for level in sorted(set(fc.lower) & set(fc.upper)):
+        lo, hi = fc.lower[level], fc.upper[level]
+        if not (np.all(np.isfinite(lo)) and np.all(np.isfinite(hi))):
+            raise _CheckFailed(f"the {level:g}% bounds have NaN or infinite values")
+        if np.any(lo > point + tol) or np.any(hi < point - tol):
+            raise _CheckFailed(f"the {level:g}% interval does not contain the point forecast")
+    if {80.0, 95.0} <= set(fc.lower) & set(fc.upper):
+        if np.any(fc.lower[95.0] > fc.lower[80.0] + tol) or np.any(
+            fc.upper[95.0] < fc.upper[80.0] - tol
+        ):
+            raise _CheckFailed("the 80% interval is not inside the 95% interval")
+
+
+@_conformance_check
+def check_covariates(c: Subject) -> None:
+    """Forecasters that receive covariates fit and predict with them (skipped when the class
+    says `uses_covariates = False`)."""
+    m = c.fresh()
+    if not _receives_covariates(m):
+        raise _Skip("uses_covariates is False")
+    n = c.y.shape[0]
+    rng = np.random.default_rng(2)
+    x = rng.normal(size=(n + c.horizon, 1))
+    data = c.y + 1.5 * x[:n, 0]
+    x_train, x_test = x[:n].copy(), x[n:].copy()
+    out = m.fit(data, season=c.season, covariates=x_train)
+    out = (m if out is None else out).predict(c.horizon, covariates=x_test)
+    try:
+        as_forecast(out, c.horizon, ())
+    except ValueError as exc:
+        raise _CheckFailed(f"with covariates: {exc}") from None
+    if not (np.array_equal(x_train, x[:n]) and np.array_equal(x_test, x[n:])):
+        raise _CheckFailed("fit or predict changed the covariate arrays passed in")
+
+
+#: The names of the checks, in the order they run.
+CHECKS: tuple[str, ...] = tuple(_check_name(fn) for fn in _CHECK_FUNCTIONS)
+
+
+def _run_one(report: CheckReport, fn: Callable[[Subject], None], subject: Subject) -> None:
+    name = _check_name(fn)
+    try:
+        fn(subject)
+    except _Skip as exc:
+        report.checks.append(CheckResult(name, "skip", str(exc)))
+    except _CheckFailed as exc:
+        report.checks.append(CheckResult(name, "fail", str(exc)))
+    except Exception as exc:
+        report.checks.append(CheckResult(name, "fail", f"raised {type(exc).__name__}: {exc}"))
+    else:
+        report.checks.append(CheckResult(name, "pass"))
+
+
+def make_subject(
+    obj_or_factory: Any,
+    *,
+    params: dict[str, Any] | None = None,
+    season: int = 4,
+    horizon: int = 5,
+    y: np.ndarray | None = None,
+) -> Subject:
+    """The :class:`Subject` of a forecaster instance, or of a class or factory and ``params``."""
+    params = dict(params or {})
+    if hasattr(obj_or_factory, "fit") and not inspect.isclass(obj_or_factory):
+        template = obj_or_factory
+
+        def fresh() -> Any:
+            return clone(template)
+
+        return Subject(type(template).__name__, fresh, _training(y, season), season, horizon, None)
+    factory: Callable[..., Any] = obj_or_factory
+
+    def build() -> Any:
+        return factory(**copy.deepcopy(params))
+
+    label = getattr(factory, "__qualname__", repr(factory))
+    return Subject(label, build, _training(y, season), season, horizon, params)
+
+
+def _training(y: np.ndarray | None, season: int) -> np.ndarray:
+    return example_series(season=season) if y is None else np.asarray(y, dtype=float)
 
 
 def check_forecaster(
@@ -211,262 +493,40 @@ def check_forecaster(
     season: int = 4,
     horizon: int = 5,
     y: np.ndarray | None = None,
+    only: tuple[str, ...] | None = None,
     raise_on_failure: bool = False,
 ) -> CheckReport:
-    """Run every conformance check on a forecaster and report each by name.
+    """Run the conformance checks on a forecaster and report each by name.
 
     ``obj_or_factory`` is a forecaster instance, or a class or factory that builds one from
     ``params`` (keyword arguments). ``y`` is the training series (default: an invented seeded
-    series of 48 positive values with season ``season``). With ``raise_on_failure`` an
-    ``AssertionError`` lists the failed checks and why.
+    series of 48 positive values with season ``season``). ``only`` runs just the named checks
+    (names from :data:`CHECKS`). With ``raise_on_failure`` an ``AssertionError`` lists the
+    failed checks and why.
 
     >>> from runner.forecasters.models.theta import Theta
     >>> check_forecaster(Theta, params={"deseasonalize": False}).passed
     True
     """
-    params = dict(params or {})
-    if hasattr(obj_or_factory, "fit") and not inspect.isclass(obj_or_factory):
-        template = obj_or_factory
-        label = type(template).__name__
-
-        def fresh() -> Any:
-            return clone(template)
-
-        passed_values = None
-    else:
-        factory: Callable[..., Any] = obj_or_factory
-        label = getattr(factory, "__qualname__", repr(factory))
-
-        def fresh() -> Any:
-            return factory(**copy.deepcopy(params))
-
-        passed_values = params
-    y = example_series(season=season) if y is None else np.asarray(y, dtype=float)
-    report = CheckReport(label)
-    h = horizon
-    checks: list[tuple[str, Callable[[], None]]] = []
-
-    def check(fn: Callable[[], None]) -> Callable[[], None]:
-        checks.append((fn.__name__.lstrip("_"), fn))
-        return fn
-
-    def fit_predict(m: Any, data: np.ndarray, levels: tuple[float, ...] = ()) -> Any:
-        out = m.fit(data, season=season)
-        return (m if out is None else out).predict(h, levels=levels)
-
-    @check
-    def _protocol() -> None:
-        problem = protocol_problem(fresh())
-        if problem:
-            raise _CheckFailed(problem)
-
-    @check
-    def _init_stores_params() -> None:
-        obj = fresh()
-        sig = inspect.signature(type(obj).__init__)
-        names = []
-        for name, p in list(sig.parameters.items())[1:]:
-            if p.kind in (p.VAR_POSITIONAL, p.VAR_KEYWORD):
-                star = "*" if p.kind is p.VAR_POSITIONAL else "**"
-                raise _CheckFailed(f"__init__ takes {star}{name}; declare each parameter by name")
-            names.append(name)
-            if not hasattr(obj, name):
-                raise _CheckFailed(f"parameter {name!r} is not stored as attribute {name!r}")
-            if passed_values is not None:
-                expected = passed_values.get(name, p.default)
-                if expected is not inspect.Parameter.empty and not _same(
-                    getattr(obj, name), expected
-                ):
-                    raise _CheckFailed(
-                        f"parameter {name!r} was given {expected!r} but stored "
-                        f"{getattr(obj, name)!r}; __init__ must store it unchanged"
-                    )
-        state = vars(obj) if hasattr(obj, "__dict__") else {}
-        fitted = sorted(k for k in state if k.endswith("_") and not k.startswith("__"))
-        if fitted:
-            raise _CheckFailed(f"__init__ sets fitted attributes {fitted}; only fit should")
-        extra = sorted(k for k in state if not k.startswith("_") and k not in names)
-        if extra:
-            raise _CheckFailed(f"__init__ sets attributes that are not parameters: {extra}")
-
-    @check
-    def _clone_equal_params() -> None:
-        obj = fresh()
-        other = clone(obj)
-        if other is obj or type(other) is not type(obj):
-            raise _CheckFailed("clone did not build a new object of the same class")
-        a, b = get_params(obj), get_params(other)
-        bad = [k for k in a if not _same(a[k], b[k])]
-        if bad:
-            raise _CheckFailed(f"rebuilt from its parameters, {bad[0]!r} differs")
-
-    @check
-    def _fit_returns_self() -> None:
-        m = fresh()
-        out = m.fit(y.copy(), season=season)
-        if out is not m:
-            raise _CheckFailed(f"fit returned {type(out).__name__}, expected the forecaster itself")
-
-    @check
-    def _fit_keeps_params() -> None:
-        m = fresh()
-        before = copy.deepcopy(_params(m))
-        m.fit(y.copy(), season=season)
-        after = _params(m)
-        bad = [k for k in before if not _same(before[k], after[k])]
-        if bad:
-            raise _CheckFailed(f"fit changed parameter {bad[0]!r}; keep fitted state in name_")
-
-    @check
-    def _fitted_attributes_underscore() -> None:
-        m = fresh()
-        before = set(vars(m)) if hasattr(m, "__dict__") else set()
-        m.fit(y.copy(), season=season)
-        new = set(vars(m)) - before if hasattr(m, "__dict__") else set()
-        bad = sorted(k for k in new if not k.endswith("_") and not k.startswith("_"))
-        if bad:
-            raise _CheckFailed(f"fit set attributes {bad} whose names do not end with '_'")
-
-    @check
-    def _predict_shape() -> None:
-        for steps in (1, h):
-            m = fresh()
-            m.fit(y.copy(), season=season)
-            out = m.predict(steps)
-            try:
-                as_forecast(out, steps, ())
-            except ValueError as exc:
-                raise _CheckFailed(f"predict({steps}): {exc}") from None
-
-    @check
-    def _no_input_mutation() -> None:
-        data = y.copy()
-        m = fresh()
-        m.fit(data, season=season)
-        m.predict(h)
-        if not np.array_equal(data, y):
-            raise _CheckFailed("fit or predict changed the training array passed in")
-
-    @check
-    def _picklable_unfitted() -> None:
-        m = fresh()
-        back = pickle.loads(pickle.dumps(m))
-        a, b = _params(m), _params(back)
-        bad = [k for k in a if not _same(a[k], b[k])]
-        if bad:
-            raise _CheckFailed(f"after pickling, parameter {bad[0]!r} differs")
-
-    @check
-    def _picklable_fitted() -> None:
-        m = fresh()
-        m.fit(y.copy(), season=season)
-        back = pickle.loads(pickle.dumps(m))
-        problem = _differs(_arrays(m.predict(h), h), _arrays(back.predict(h), h), exact=False)
-        if problem:
-            raise _CheckFailed(f"after pickling the fitted forecaster, {problem}")
-
-    @check
-    def _deterministic() -> None:
-        a = _arrays(fit_predict(fresh(), y.copy(), (80.0,)), h)
-        b = _arrays(fit_predict(fresh(), y.copy(), (80.0,)), h)
-        problem = _differs(a, b, exact=True)
-        if problem:
-            raise _CheckFailed(f"two fits on the same data: {problem}")
-
-    @check
-    def _refit_independent() -> None:
-        other = example_series(n=y.shape[0], season=season, seed=1)[::-1] * 1.5
-        m = fresh()
-        m.fit(other, season=season)
-        again = _arrays(fit_predict(m, y.copy()), h)
-        once = _arrays(fit_predict(fresh(), y.copy()), h)
-        problem = _differs(again, once, exact=False)
-        if problem:
-            raise _CheckFailed(f"a second fit still depends on the first: {problem}")
-
-    @check
-    def _too_short_series() -> None:
-        try:
-            fresh().fit(np.empty(0), season=season)
-        except ValueError as exc:
-            if not str(exc).strip():
-                raise _CheckFailed("an empty series raised ValueError without a message") from None
-        except Exception as exc:
-            raise _CheckFailed(
-                f"an empty series raised {type(exc).__name__} ({exc}); expected ValueError "
-                "with a message"
-            ) from None
-        else:
-            raise _CheckFailed("an empty series was accepted; expected a ValueError")
-        for n in (1, 2):
-            try:
-                out = fit_predict(fresh(), y[:n].copy())
-            except ValueError as exc:
-                if not str(exc).strip():
-                    raise _CheckFailed(f"{n} value(s): ValueError without a message") from None
-                continue
-            except Exception as exc:
-                raise _CheckFailed(
-                    f"{n} value(s) raised {type(exc).__name__} ({exc}); expected a forecast or "
-                    "a ValueError saying the series is too short"
-                ) from None
-            try:
-                as_forecast(out, h, ())
-            except ValueError as exc:
-                raise _CheckFailed(f"{n} value(s): {exc}; expected a ValueError instead") from None
-
-    @check
-    def _intervals_ordered() -> None:
-        out = fit_predict(fresh(), y.copy(), (80.0, 95.0))
-        if not isinstance(out, Forecast) or not out.lower:
-            raise _Skip("no intervals returned")
-        fc = as_forecast(out, h, (80.0, 95.0))
-        point = fc.point
-        tol = 1e-9 * max(1.0, float(np.max(np.abs(point))))
-        for level in sorted(set(fc.lower) & set(fc.upper)):
-            lo, hi = fc.lower[level], fc.upper[level]
-            if not (np.all(np.isfinite(lo)) and np.all(np.isfinite(hi))):
-                raise _CheckFailed(f"the {level:g}% bounds have NaN or infinite values")
-            if np.any(lo > point + tol) or np.any(hi < point - tol):
-                raise _CheckFailed(f"the {level:g}% interval does not contain the point forecast")
-        if {80.0, 95.0} <= set(fc.lower) & set(fc.upper):
-            if np.any(fc.lower[95.0] > fc.lower[80.0] + tol) or np.any(
-                fc.upper[95.0] < fc.upper[80.0] - tol
-            ):
-                raise _CheckFailed("the 80% interval is not inside the 95% interval")
-
-    @check
-    def _covariates() -> None:
-        m = fresh()
-        if not _receives_covariates(m):
-            raise _Skip("uses_covariates is False")
-        n = y.shape[0]
-        rng = np.random.default_rng(2)
-        x = rng.normal(size=(n + h, 1))
-        data = y + 1.5 * x[:n, 0]
-        x_train, x_test = x[:n].copy(), x[n:].copy()
-        out = m.fit(data, season=season, covariates=x_train)
-        out = (m if out is None else out).predict(h, covariates=x_test)
-        try:
-            as_forecast(out, h, ())
-        except ValueError as exc:
-            raise _CheckFailed(f"with covariates: {exc}") from None
-        if not (np.array_equal(x_train, x[:n]) and np.array_equal(x_test, x[n:])):
-            raise _CheckFailed("fit or predict changed the covariate arrays passed in")
-
+    unknown = sorted(set(only or ()) - set(CHECKS))
+    if unknown:
+        raise ValueError(f"only: unknown check {unknown[0]!r}; expected some of {CHECKS}")
+    chosen = [fn for fn in _CHECK_FUNCTIONS if only is None or _check_name(fn) in only]
+    subject = make_subject(obj_or_factory, params=params, season=season, horizon=horizon, y=y)
+    report = CheckReport(subject.label)
     try:
-        fresh()
+        subject.fresh()
     except Exception as exc:
         msg = f"building the forecaster raised {type(exc).__name__}: {exc}"
-        report.results = [CheckResult(name, "fail", msg) for name in CHECKS]
+        report.checks = [CheckResult(_check_name(fn), "fail", msg) for fn in chosen]
     else:
-        for name, fn in checks:
-            with _check(report, name):
-                fn()
+        for fn in chosen:
+            _run_one(report, fn, subject)
     if raise_on_failure and report.failed:
-        details = "; ".join(f"{r.name} ({r.message})" for r in report.results if r.status == "fail")
+        details = "; ".join(f"{r.name} ({r.message})" for r in report.checks if r.status == "fail")
         raise AssertionError(
-            f"check_forecaster({label}): failed checks: {', '.join(report.failed)} -- {details}"
+            f"check_forecaster({subject.label}): failed checks: {', '.join(report.failed)} "
+            f"-- {details}"
         )
     return report
 

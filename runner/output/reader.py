@@ -30,6 +30,7 @@ SCORES = "scores.parquet"
 HORIZON = "horizon.csv"
 FORECASTS = "forecasts.parquet"
 FAILURES = "failures.csv"
+SEGMENT_LEADERBOARD = "leaderboard_segments.csv"
 
 #: Columns every leaderboard.csv has, whatever its metrics.
 LEADERBOARD_COLUMNS = ("dataset", "rank", "forecaster", "kind", "role")
@@ -177,7 +178,8 @@ def _read_csv(folder: ResultsFolder, name: str, required: tuple[str, ...]) -> pd
     try:
         # Only an empty cell is missing: a forecaster may well be called "NA" or "null".
         frame = pd.read_csv(io.BytesIO(raw), keep_default_na=False, na_values=[""],
-                            dtype={"dataset": str, "forecaster": str, "series": str})
+                            dtype={"dataset": str, "forecaster": str, "series": str,
+                                   "attribute": str, "segment": str})
     except (pd.errors.ParserError, pd.errors.EmptyDataError, UnicodeDecodeError) as exc:
         first = str(exc).strip().splitlines()[0] if str(exc).strip() else "empty file"
         raise DataError(f"{folder.where(name)}: not a readable CSV table ({first})") from None
@@ -189,14 +191,30 @@ def _read_csv(folder: ResultsFolder, name: str, required: tuple[str, ...]) -> pd
 
 def read_leaderboard(folder: ResultsFolder, rank_by: str | None = None) -> pd.DataFrame:
     """leaderboard.csv with numeric metric columns; ``rank_by`` adds its mean to the checks."""
+    required = LEADERBOARD_COLUMNS + ((f"{rank_by}_mean",) if rank_by else ())
+    return _numeric_board(folder, LEADERBOARD, _read_csv(folder, LEADERBOARD, required))
+
+
+def read_segment_leaderboard(folder: ResultsFolder, rank_by: str | None = None
+                             ) -> pd.DataFrame | None:
+    """leaderboard_segments.csv like :func:`read_leaderboard`, or None when the folder has
+    none (a run without ``segments:``)."""
+    if not folder.exists(SEGMENT_LEADERBOARD):
+        return None
+    required = ("attribute", "segment", *LEADERBOARD_COLUMNS,
+                *((f"{rank_by}_mean",) if rank_by else ()))
+    return _numeric_board(folder, SEGMENT_LEADERBOARD,
+                          _read_csv(folder, SEGMENT_LEADERBOARD, required))
+
+
+def _numeric_board(folder: ResultsFolder, name: str, frame: pd.DataFrame) -> pd.DataFrame:
+    """Every column of a leaderboard file as a number, except its text and true/false ones."""
     import pandas as pd
 
-    required = LEADERBOARD_COLUMNS + ((f"{rank_by}_mean",) if rank_by else ())
-    frame = _read_csv(folder, LEADERBOARD, required)
     for col in frame.columns:
-        if col in ("dataset", "forecaster", "kind", "role"):
+        if col in ("dataset", "forecaster", "kind", "role", "attribute", "segment"):
             continue
-        if col == "beats_reference":
+        if col in ("beats_reference", "complete"):
             frame[col] = frame[col].map(lambda v: str(v).strip().lower() == "true")
             continue
         converted = pd.to_numeric(frame[col], errors="coerce")
@@ -204,22 +222,52 @@ def read_leaderboard(folder: ResultsFolder, rank_by: str | None = None) -> pd.Da
         if bad.any():
             line = int(bad.to_numpy().nonzero()[0][0]) + 2  # header is line 1
             raise DataError(
-                f"{folder.where(LEADERBOARD)}: line {line}: column {col!r}: expected a number, "
+                f"{folder.where(name)}: line {line}: column {col!r}: expected a number, "
                 f"got {frame[col][bad].iloc[0]!r}"
             )
         frame[col] = converted.astype(float)
     return frame
 
 
-def read_table(folder: ResultsFolder, name: str, required: tuple[str, ...]) -> pd.DataFrame:
-    """A CSV or Parquet file of the folder, checked for ``required`` columns."""
+def _parquet_source(folder: ResultsFolder, name: str) -> Any:
+    """A path for pyarrow to read (only the parts it needs) or, from git, the file's bytes."""
+    if folder.path is not None:
+        path = folder.path / name
+        if not path.is_file():
+            folder.read_bytes(name)  # raises the usual DataError
+        return str(path)
+    return io.BytesIO(folder.read_bytes(name))
+
+
+def read_columns(folder: ResultsFolder, name: str, required: tuple[str, ...]) -> list[str]:
+    """The columns of a Parquet file of the folder (its footer only), checked for
+    ``required``."""
+    import pyarrow.parquet as pq
+
+    try:
+        names = list(pq.read_schema(_parquet_source(folder, name)).names)
+    except DataError:
+        raise
+    except Exception as exc:  # pyarrow raises several types for a damaged file
+        raise DataError(f"{folder.where(name)}: not a readable Parquet file ({exc})") from None
+    missing = [c for c in required if c not in names]
+    if missing:
+        raise DataError(f"{folder.where(name)}: column {missing[0]!r} is missing")
+    return names
+
+
+def read_table(folder: ResultsFolder, name: str, required: tuple[str, ...],
+               filters: list[tuple[str, str, Any]] | None = None) -> pd.DataFrame:
+    """A CSV or Parquet file of the folder, checked for ``required`` columns; ``filters``
+    (pyarrow's ``(column, op, value)`` triples) select rows of a Parquet file as it is read."""
     if not name.endswith(".parquet"):
         return _read_csv(folder, name, required)
     import pandas as pd
 
-    raw = folder.read_bytes(name)
     try:
-        frame = pd.read_parquet(io.BytesIO(raw))
+        frame = pd.read_parquet(_parquet_source(folder, name), filters=filters)
+    except DataError:
+        raise
     except Exception as exc:  # pyarrow raises several types for a damaged file
         raise DataError(f"{folder.where(name)}: not a readable Parquet file ({exc})") from None
     missing = [c for c in required if c not in frame.columns]

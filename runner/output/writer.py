@@ -1,14 +1,21 @@
 """Writing a results folder: every file is built in a temporary folder, then swapped in.
 
 Nothing half-written: if anything fails while writing, the previous results stay as they were.
+The temporary folder (``.NAME.tmp-HOST-PID-XXXX``) and the previous results while they are
+being replaced (``.NAME.old-HOST-PID-XXXX``) sit beside ``NAME`` and carry the writing
+process's host and id, so that a later run can tell what a killed run left behind from what a
+running one is still writing (:func:`sweep_leftovers`).
 """
 
 from __future__ import annotations
 
+import hashlib
 import json
 import os
 import platform
+import re
 import shutil
+import socket
 import tempfile
 from collections.abc import Callable
 from pathlib import Path
@@ -19,39 +26,53 @@ import pandas as pd
 
 from runner import __version__
 from runner.config import canonical_json, config_hash
+from runner.errors import PathError
+from runner.forecasters.recorded import manifest_entries
 from runner.forecasters.registry import identity
 from runner.output.reader import interval_columns
+from runner.output.tables import to_csv_text, to_markdown
 from runner.scoring import metrics as M
+from runner.scoring.derived import selection_frame
 from runner.scoring.evaluate import Evaluation
-from runner.scoring.leaderboard import to_csv_text, to_markdown
+from runner.windows.plan import DatasetPlan
 
 
 def _dict_array(codes: np.ndarray, labels: list[str]):
+    """A dictionary-encoded text column: ``codes`` index ``labels``. Repeated labels (two
+    datasets may name their series alike) are merged first, since readers refuse a dictionary
+    with repeated values; otherwise the codes are used as they are."""
     import pyarrow as pa
+    import pyarrow.compute as pc
 
-    return pa.DictionaryArray.from_arrays(
-        pa.array(np.asarray(codes, dtype=np.int32)), pa.array(labels, type=pa.string())
-    )
+    text = pa.array(labels, type=pa.string())
+    codes = np.asarray(codes)
+    if len(pc.unique(text)) != len(text):
+        unique, first_of = np.unique(np.asarray(labels, dtype=object).astype(str),
+                                     return_inverse=True)
+        codes, text = first_of[codes], pa.array(unique, type=pa.string())
+    return pa.DictionaryArray.from_arrays(pa.array(codes.astype(np.int32, copy=False)), text)
 
 
 def _versions() -> dict[str, str]:
-    import joblib
-    import pyarrow
-    import pydantic
-    import scipy
-    import statsmodels
+    # From the installed packages' metadata: importing statsmodels and scipy only to read
+    # their versions would cost a run that fits nothing most of a second.
+    from importlib.metadata import version
 
     return {
         "castgrid": __version__,
         "python": platform.python_version(),
         "numpy": np.__version__,
         "pandas": pd.__version__,
-        "statsmodels": statsmodels.__version__,
-        "scipy": scipy.__version__,
-        "pydantic": pydantic.__version__,
-        "pyarrow": pyarrow.__version__,
-        "joblib": joblib.__version__,
+        "statsmodels": version("statsmodels"),
+        "scipy": version("scipy"),
+        "pydantic": version("pydantic"),
+        "pyarrow": version("pyarrow"),
     }
+
+
+def _origins_summary(dp: DatasetPlan) -> dict[str, Any]:
+    labels = dp.origin_labels()
+    return {"count": int(len(labels)), "first": str(labels[0]), "last": str(labels[-1])}
 
 
 def _cpu_model() -> str:
@@ -108,7 +129,7 @@ def manifest(ev: Evaluation) -> dict[str, Any]:
     cfg = ev.plan.config
     failed = sum(int(r.failed.sum()) for dr in ev.datasets for r in dr.results)
     total = ev.plan.n_tasks
-    return {
+    man: dict[str, Any] = {
         "experiment": cfg.experiment,
         "config": json.loads(canonical_json(cfg)),
         "config_hash": config_hash(cfg),
@@ -120,6 +141,7 @@ def manifest(ev: Evaluation) -> dict[str, Any]:
                 "fingerprint": dr.plan.panel.fingerprint,
                 "series": dr.plan.panel.n_series,
                 "observations": int(len(dr.plan.panel.values)),
+                "origins": _origins_summary(dr.plan),
                 # missing actuals in test blocks (missing: interpolate): left out of the scores
                 "unscored_actuals": dr.unscored_actuals,
             }
@@ -139,14 +161,26 @@ def manifest(ev: Evaluation) -> dict[str, Any]:
         "rank_by": cfg.rank_by,
         "metrics": cfg.metrics,
         "reference": {dr.plan.panel.name: dr.plan.reference for dr in ev.datasets},
+        # where a default gave way to the config (rank metric, reference, dropped grid
+        # combinations) and choices that may mislead: the same lines the run printed
+        "notes": ev.plan.all_notes(),
+        "warnings": list(ev.plan.warnings),
         "forecasters": [
             {"name": s.name, "kind": s.kind, "role": s.role, "identity": identity(s)}
             for s in ev.plan.forecasters
         ],
     }
+    if ev.plan.recorded:  # the forecasts files read, so that diff can tell when one changed
+        man["recorded"] = manifest_entries(ev.plan)
+    return man
 
 
-def _scores_table(ev: Evaluation, cols: list[str]):
+def scores_table(ev: Evaluation, cols: list[str]) -> Any:
+    """scores.parquet as an Arrow table: one row per dataset, series, forecaster and fold.
+
+    ``fold`` numbers the dataset's origins from the oldest; ``origin`` is the time of the
+    fold's last training observation (see :func:`time_array`).
+    """
     import pyarrow as pa
 
     names = [s.name for s in ev.plan.forecasters]
@@ -158,14 +192,13 @@ def _scores_table(ev: Evaluation, cols: list[str]):
         dp, panel = dr.plan, dr.plan.panel
         offset = len(keys)
         keys.extend(panel.keys)
-        origin_labels = panel.format_time(dp.ends - 1)
         for r in dr.results:
             n = dp.n_tasks
             parts["d"].append(np.full(n, d))
             parts["s"].append(dp.series + offset)
             parts["f"].append(np.full(n, names.index(r.spec.name)))
             parts["fold"].append(dp.fold)
-            parts["origin"].append(origin_labels)
+            parts["origin"].append(dp.ends - 1)
             for c in cols:
                 metric_parts[c].append(r.scores[c].per_task)
     cat = {k: np.concatenate(v) if v else np.empty(0) for k, v in parts.items()}
@@ -174,11 +207,39 @@ def _scores_table(ev: Evaluation, cols: list[str]):
         "series": _dict_array(cat["s"], keys),
         "forecaster": _dict_array(cat["f"], names),
         "fold": pa.array(cat["fold"].astype(np.int32)),
-        "origin": pa.array(np.asarray(cat["origin"], dtype=object).astype(str)),
+        "origin": time_array(ev, cat["d"], cat["origin"]),
     }
     for c in cols:
         data[c] = pa.array(np.concatenate(metric_parts[c]).astype(float))
     return pa.table(data)
+
+
+def time_array(ev: Evaluation, dataset: np.ndarray, position: np.ndarray) -> Any:
+    """Times of rows (dataset index, flat position in its panel) as an Arrow column.
+
+    Timestamps when every dataset has dates, integers when every dataset has integer times,
+    so readers get real times; text (as every other output prints them) when a run mixes both.
+    """
+    import pyarrow as pa
+
+    panels = [dr.plan.panel for dr in ev.datasets]
+    kinds = {p.times.dtype.kind for p in panels}
+    if len(panels) == 1 and kinds <= {"M", "i"}:  # one dataset: one gather, no masks
+        times = panels[0].times[position]
+        return pa.array(times.astype("datetime64[ns]" if kinds == {"M"} else np.int64,
+                                     copy=False))
+    if kinds <= {"M"} or kinds <= {"i"}:
+        dtype = "datetime64[ns]" if kinds == {"M"} else np.int64
+        out = np.empty(len(position), dtype=dtype)
+        for d, panel in enumerate(panels):
+            rows = dataset == d
+            out[rows] = panel.times[position[rows]]
+        return pa.array(out)
+    text = np.empty(len(position), dtype=object)
+    for d, panel in enumerate(panels):
+        rows = dataset == d
+        text[rows] = panel.format_time(position[rows])
+    return pa.array(text.astype(str))
 
 
 def _forecasts_table(ev: Evaluation):
@@ -190,9 +251,9 @@ def _forecasts_table(ev: Evaluation):
     names = [s.name for s in ev.plan.forecasters]
     ds_names = [dr.plan.panel.name for dr in ev.datasets]
     keys: list[str] = []
-    times: list[np.ndarray] = []
-    time_offset = 0
-    cols: dict[str, list[np.ndarray]] = {k: [] for k in ("d", "s", "f", "fold", "step", "t")}
+    cols: dict[str, list[np.ndarray]] = {
+        k: [] for k in ("d", "s", "f", "fold", "origin", "step", "t")
+    }
     values: dict[str, list[np.ndarray]] = {"actual": [], "forecast": []}
     bounds = [interval_columns(lv) for lv in levels]
     for lo, hi in bounds:
@@ -203,15 +264,16 @@ def _forecasts_table(ev: Evaluation):
         dp, panel = dr.plan, dr.plan.panel
         s_offset = len(keys)
         keys.extend(panel.keys)
-        times.append(panel.format_time(np.arange(len(panel.values))))
-        t_index = (dp.test_starts[:, None] + steps[None, :]).ravel() + time_offset
-        time_offset += len(panel.values)
+        t_index = (dp.test_starts[:, None] + steps[None, :]).ravel()
+        # the origin is the time of the last training observation
+        origin_index = np.repeat(dp.ends - 1, h)
         for r in dr.results:
             n = dp.n_tasks
             cols["d"].append(np.full(n * h, d))
             cols["s"].append(np.repeat(dp.series + s_offset, h))
             cols["f"].append(np.full(n * h, names.index(r.spec.name)))
             cols["fold"].append(np.repeat(dp.fold, h))
+            cols["origin"].append(origin_index)
             cols["step"].append(np.tile(steps + 1, n))
             cols["t"].append(t_index)
             values["actual"].append(dr.actual.ravel())
@@ -220,14 +282,14 @@ def _forecasts_table(ev: Evaluation):
                 values[lo].append(r.lower[i].ravel())
                 values[hi].append(r.upper[i].ravel())
     cat = {k: np.concatenate(v) for k, v in cols.items()}
-    all_times = np.concatenate(times).astype(str).tolist()
     data = {
         "dataset": _dict_array(cat["d"], ds_names),
         "series": _dict_array(cat["s"], keys),
         "forecaster": _dict_array(cat["f"], names),
         "fold": pa.array(cat["fold"].astype(np.int32)),
+        "origin": time_array(ev, cat["d"], cat["origin"]),
         "step": pa.array(cat["step"].astype(np.int32)),
-        "time": _dict_array(cat["t"], all_times),
+        "time": time_array(ev, cat["d"], cat["t"]),
     }
     for k, v in values.items():
         data[k] = pa.array(np.concatenate(v).astype(float))
@@ -252,15 +314,16 @@ def _failures_frame(ev: Evaluation) -> pd.DataFrame:
     rows = []
     for dr in ev.datasets:
         dp = dr.plan
+        origins = dp.panel.format_time(dp.ends - 1)
         for r in dr.results:
             for t in np.flatnonzero(r.failed):
                 rows.append({
                     "dataset": dp.panel.name, "series": dp.panel.keys[dp.series[t]],
                     "forecaster": r.spec.name, "fold": int(dp.fold[t]),
-                    "reason": r.reason[t], "message": r.message[t],
+                    "origin": str(origins[t]), "reason": r.reason[t], "message": r.message[t],
                 })
-    return pd.DataFrame(rows, columns=["dataset", "series", "forecaster", "fold", "reason",
-                                       "message"])
+    return pd.DataFrame(rows, columns=["dataset", "series", "forecaster", "fold", "origin",
+                                       "reason", "message"])
 
 
 def _csv(frame: pd.DataFrame, path: Path) -> None:
@@ -287,7 +350,8 @@ def write_results(
     cols = M.columns(cfg.metrics, tuple(cfg.intervals))
     out_dir = Path(out_dir)
     out_dir.parent.mkdir(parents=True, exist_ok=True)
-    tmp = Path(tempfile.mkdtemp(prefix=f".{out_dir.name}.", dir=out_dir.parent))
+    sweep_leftovers(out_dir)
+    tmp = Path(tempfile.mkdtemp(prefix=f".{out_dir.name}.tmp-{_owner()}-", dir=out_dir.parent))
     os.chmod(tmp, 0o755)  # mkdtemp makes it private; a results folder is for everyone to read
     try:
         man = manifest(ev)
@@ -298,10 +362,16 @@ def write_results(
         (tmp / "manifest.json").write_text(
             json.dumps(man, indent=2, sort_keys=True) + "\n", encoding="utf-8"
         )
-        pq.write_table(_scores_table(ev, cols), tmp / "scores.parquet")
+        from runner.output.segments import write_segment_files
+
+        write_segment_files(ev, tmp, board)
+        pq.write_table(scores_table(ev, cols), tmp / "scores.parquet")
         pq.write_table(_forecasts_table(ev), tmp / "forecasts.parquet")
         _csv(_horizon_frame(ev, cols), tmp / "horizon.csv")
         _csv(_failures_frame(ev), tmp / "failures.csv")
+        selection = selection_frame(ev)
+        if selection is not None:  # only runs with a best_so_far candidate have one
+            _csv(selection, tmp / "selection.csv")
         old_history = out_dir / "history.jsonl"
         if old_history.exists():
             shutil.copy2(old_history, tmp / "history.jsonl")
@@ -320,9 +390,100 @@ def write_results(
 def _swap_in(tmp: Path, out_dir: Path) -> None:
     """Replace ``out_dir`` by ``tmp`` with renames, so readers never see a mix of two runs."""
     if out_dir.exists():
-        old = out_dir.with_name(f".{out_dir.name}.old-{os.getpid()}")
+        # Named after tmp (unique, and marked with this process as its owner).
+        old = tmp.with_name(f".{out_dir.name}.old-" + tmp.name[len(f".{out_dir.name}.tmp-"):])
         os.replace(out_dir, old)
         os.replace(tmp, out_dir)
         shutil.rmtree(old, ignore_errors=True)
     else:
         os.replace(tmp, out_dir)
+
+
+# ------------------------------------------------------------- before a run, after a kill
+
+
+def check_output_dir(out_dir: str | Path) -> None:
+    """Raise :class:`~runner.errors.PathError` when ``out_dir`` cannot be written as a whole.
+
+    Run before any computing, so that a read-only folder costs the user a second, not a run:
+    the folder that will hold ``out_dir`` (or its nearest existing ancestor) must be a
+    writable folder, and an existing ``out_dir`` a writable folder (it is replaced as a
+    whole) with a readable ``history.jsonl``.
+    """
+    out_dir = Path(out_dir)
+    if out_dir.exists() and not out_dir.is_dir():
+        raise PathError(f"{out_dir}: expected a results folder, found a file")
+    holder = out_dir.absolute().parent
+    while not holder.exists() and holder != holder.parent:
+        holder = holder.parent
+    if not holder.is_dir():
+        raise PathError(f"{holder}: expected a folder to hold results folder {out_dir}, "
+                        "found a file")
+    if not os.access(holder, os.W_OK | os.X_OK):
+        raise PathError(
+            f"{holder}: cannot write here (permission denied or read-only), so results folder "
+            f"{out_dir} cannot be written; choose another --out or output.dir"
+        )
+    if out_dir.is_dir():
+        if not os.access(out_dir, os.W_OK | os.X_OK):
+            raise PathError(
+                f"{out_dir}: the results folder is read-only; a run replaces it as a whole "
+                "(make it writable, or choose another --out or output.dir)"
+            )
+        history = out_dir / "history.jsonl"
+        if history.exists() and not os.access(history, os.R_OK):
+            raise PathError(f"{history}: cannot read the run history (permission denied)")
+
+
+#: ``tmp`` or ``old``, the writer's host tag and process id, and mkdtemp's random part.
+_LEFTOVER = re.compile(r"(?P<kind>tmp|old)-(?P<host>[0-9a-f]{8})-(?P<pid>[0-9]+)-[A-Za-z0-9_]+")
+
+
+def _host_tag() -> str:
+    return hashlib.sha256(socket.gethostname().encode()).hexdigest()[:8]
+
+
+def _owner() -> str:
+    """``HOST-PID`` of this process, as written into the names of its temporary folders."""
+    return f"{_host_tag()}-{os.getpid()}"
+
+
+def _process_gone(pid: int) -> bool:
+    """True only when no process ``pid`` exists on this machine (POSIX; elsewhere False)."""
+    if os.name != "posix":
+        return False
+    try:
+        os.kill(pid, 0)
+    except ProcessLookupError:
+        return True
+    except OSError:  # exists, but belongs to another user
+        return False
+    return False
+
+
+def sweep_leftovers(out_dir: str | Path) -> list[Path]:
+    """Remove what killed runs left beside ``out_dir``; returns the folders removed.
+
+    Only folders named by :func:`write_results` for this ``out_dir``, written on this host, by
+    a process that no longer exists. A run killed between the two renames of the swap left
+    the previous results as ``.NAME.old-...`` and no ``NAME``: those are put back.
+    """
+    out_dir = Path(out_dir)
+    parent, prefix = out_dir.parent, f".{out_dir.name}."
+    try:
+        entries = sorted(p for p in parent.iterdir() if p.name.startswith(prefix))
+    except OSError:
+        return []
+    host, removed = _host_tag(), []
+    for entry in entries:
+        m = _LEFTOVER.fullmatch(entry.name[len(prefix):])
+        if m is None or m["host"] != host or not entry.is_dir() or entry.is_symlink():
+            continue
+        if not _process_gone(int(m["pid"])):
+            continue
+        if m["kind"] == "old" and not out_dir.exists():
+            os.replace(entry, out_dir)
+            continue
+        shutil.rmtree(entry, ignore_errors=True)
+        removed.append(entry)
+    return removed

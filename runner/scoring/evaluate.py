@@ -16,10 +16,13 @@ import numpy as np
 from runner.config import ForecasterSpec
 from runner.execution.dispatch import EngineCounts, forecast_models
 from runner.execution.model_tasks import build_model_tasks
-from runner.execution.tasks import ModelTask
+from runner.execution.panel_tasks import build_panel_tasks, panel_results, panel_rows
+from runner.execution.tasks import ModelTask, TaskOutcome
+from runner.forecasters.recorded import recorded_forecasts
 from runner.forecasters.registry import build, is_vectorised
 from runner.forecasters.slices import SliceSummary, summarise
 from runner.scoring import metrics as M
+from runner.scoring.derived import add_derived
 from runner.windows.plan import DatasetPlan, Plan
 
 
@@ -91,6 +94,40 @@ def _baseline_result(
     return ForecasterResult(spec, b.point, b.lower, b.upper, reason, message)
 
 
+def _few(names: list[str], show: int = 3) -> str:
+    more = f" and {len(names) - show} more" if len(names) > show else ""
+    return ", ".join(names[:show]) + more
+
+
+def _undefined_warnings(
+    dp: DatasetPlan, ordered: list[ForecasterResult], cols: list[str]
+) -> list[str]:
+    """One warning per kind of undefined score: which metrics, how many scores, where.
+
+    A constant series makes every scaled metric undefined for every forecaster at once; a line
+    per forecaster and metric would bury the other messages. Metrics undefined for the same
+    series and forecasters share a line.
+    """
+    kinds: dict[tuple[tuple[int, ...], tuple[str, ...]], list[tuple[str, int]]] = {}
+    for col in cols:
+        hits = [(r.spec.name, r.scores[col].undefined) for r in ordered
+                if col in r.scores and r.scores[col].undefined.any()]  # fmt: skip
+        if hits:
+            series = tuple(np.unique(np.concatenate([dp.series[u] for _, u in hits])).tolist())
+            key = (series, tuple(name for name, _ in hits))
+            kinds.setdefault(key, []).append((col, sum(int(u.sum()) for _, u in hits)))
+    lines = []
+    for (series, forecasters), metrics in kinds.items():
+        names = [dp.panel.keys[i] for i in series]
+        what = _few([col for col, _ in metrics], show=len(metrics))
+        lines.append(
+            f"dataset {dp.panel.name}: {what} undefined (zero or undefined denominator) in "
+            f"{sum(n for _, n in metrics)} score(s): {len(names)} series ({_few(names)}), "
+            f"{len(forecasters)} forecaster(s) ({_few(list(forecasters))}); left out of the means"
+        )
+    return lines
+
+
 def evaluate(
     plan: Plan, *, use_cache: bool = True, jobs: int | None = None, quiet: bool = False
 ) -> Evaluation:
@@ -109,6 +146,10 @@ def evaluate(
             spec = plan.forecasters[f]
             if is_vectorised(spec):
                 per_dataset[d][f] = _baseline_result(spec, dp, summaries[d], horizon, levels)
+    for rec in recorded_forecasts(plan):  # forecasts read from files: no fit, no task
+        per_dataset[rec.dataset][rec.forecaster] = ForecasterResult(
+            plan.forecasters[rec.forecaster], rec.point, rec.lower, rec.upper, rec.reason,
+            rec.message)
     model_tasks, shared = build_model_tasks(plan)
 
     # Per-series models: through the engine (cache, workers, fault isolation).
@@ -154,6 +195,27 @@ def evaluate(
                 plan.forecasters[f], point, lower, upper, reason, message, info=info
             )
 
+    # Models trained across series: one task per (dataset, forecaster, origin), same engine.
+    panel_tasks = build_panel_tasks(plan, first_index=len(model_tasks))
+    if panel_tasks:
+        panel_out: list[TaskOutcome] = []
+        if stopped:  # on_error: stop, and a per-series task failed: no panel task runs
+            counts.not_run += sum(panel_rows(t, shared) for t in panel_tasks)
+        else:
+            panel_out, panel_counts = forecast_models(
+                panel_tasks, shared, cfg.execution, use_cache=use_cache, jobs=jobs,
+                quiet=quiet, cache_path=cfg.execution.cache_folder(), label="panel fits",
+            )
+            counts = counts + panel_counts
+            stopped = any(o.reason == "not-run" for o in panel_out)
+        for (d, f), pr in panel_results(plan, panel_tasks, panel_out, shared).items():
+            per_dataset[d][f] = ForecasterResult(
+                plan.forecasters[f], pr.point, pr.lower, pr.upper, pr.reason, pr.message,
+                info=pr.info,
+            )
+
+    add_derived(plan, summaries, per_dataset)  # combinations, selections: from the forecasts
+
     # Scores: computed from the forecasts at every run, so a new metric never refits.
     cols = M.columns(cfg.metrics, levels)
     results = []
@@ -164,23 +226,13 @@ def evaluate(
         actual = dp.panel.values[dp.test_starts[:, None] + steps[None, :]]
         mase_scale = M.scale_mase(s.seasonal_abs, s.length, dp.panel.season)
         rmsse_scale = M.scale_rmsse(s.diff_sq, s.length)
-        warnings: list[str] = []
         ordered = [per_dataset[d][f] for f in dp.forecasters]
         for r in ordered:
             r.scores = M.score_tasks(
                 cols, actual, r.point, r.lower, r.upper, levels, mase_scale, rmsse_scale
             )
             r.loss = M.pointwise_loss(cfg.rank_by, actual, r.point, mase_scale, rmsse_scale)
-            for col, sc in r.scores.items():
-                if sc.undefined.any():
-                    bad = np.unique(dp.series[sc.undefined])
-                    names = ", ".join(dp.panel.keys[i] for i in bad[:3])
-                    more = f" and {len(bad) - 3} more" if len(bad) > 3 else ""
-                    warnings.append(
-                        f"dataset {dp.panel.name}: {col} of {r.spec.name} is undefined "
-                        f"(zero or undefined denominator) for series {names}{more}; "
-                        "left out of its mean"
-                    )
+        warnings = _undefined_warnings(dp, ordered, cols)
         result = DatasetResult(dp, actual, ordered, s, warnings)
         if result.unscored_actuals:
             hit = np.isnan(actual).any(axis=1)

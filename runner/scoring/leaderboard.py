@@ -1,9 +1,16 @@
 """The leaderboard: one row per dataset and forecaster, ranked on the config's metric.
 
-Per forecaster and metric, the task scores are averaged within each fold (over the series),
-and the leaderboard gives the mean and the sample standard deviation of those fold means, so
-the spread says how much the score moves from one forecast origin to the next. Undefined task
-scores (NaN) are left out of a fold's mean and reported as warnings during the run.
+Per forecaster and metric, the task scores are averaged within each fold, that is each origin
+time of the dataset (over the series that have it), and the leaderboard gives the mean and the
+sample standard deviation of those fold means, so the spread says how much the score moves
+from one forecast origin to the next. Undefined task scores (NaN) are left out of a fold's mean
+and reported as warnings during the run.
+
+No forecaster gains rank by failing. A forecaster is ``complete`` when none of its tasks
+failed. Complete forecasters rank first, by the rank metric; those with failed tasks follow,
+by the rank metric among themselves. The relative score ``<rank_by>_rel`` and every
+significance column compare a forecaster with the reference on the tasks both completed (and
+both scored), never a forecaster's surviving folds with the reference's full set.
 """
 
 from __future__ import annotations
@@ -13,9 +20,9 @@ import pandas as pd
 
 from runner.scoring import metrics as M
 from runner.scoring.evaluate import DatasetResult, Evaluation, ForecasterResult
+from runner.windows.plan import DatasetPlan
 
 #: Float format of every number written to leaderboard.csv (fixed, so reruns are byte-equal).
-FLOAT_FORMAT = ".6g"
 
 
 def _fold_mean_sd(values: np.ndarray, groups: np.ndarray) -> tuple[float, float]:
@@ -30,8 +37,11 @@ def _fold_mean_sd(values: np.ndarray, groups: np.ndarray) -> tuple[float, float]
     return float(fold_means.mean()), sd
 
 
-def _rank_order(values: np.ndarray, names: list[str], column: str) -> np.ndarray:
-    """1-based ranks: best first by the metric's direction, NaN last, ties by name."""
+def _rank_order(
+    values: np.ndarray, names: list[str], column: str, complete: np.ndarray | None = None
+) -> np.ndarray:
+    """1-based ranks: complete forecasters first, then best first by the metric's direction,
+    NaN last, ties by name."""
     mi = M.info(column)
     key = values.copy()
     if mi.better == "higher":
@@ -41,22 +51,52 @@ def _rank_order(values: np.ndarray, names: list[str], column: str) -> np.ndarray
     elif mi.better == "target":
         key = np.abs(key - mi.target)
     key = np.where(np.isnan(key), np.inf, key)
-    order = sorted(range(len(names)), key=lambda i: (key[i], names[i]))
+    first = np.ones(len(names), dtype=bool) if complete is None else np.asarray(complete, bool)
+    order = sorted(range(len(names)), key=lambda i: (not first[i], key[i], names[i]))
     ranks = np.empty(len(names), dtype=np.int64)
     ranks[order] = np.arange(1, len(names) + 1)
     return ranks
 
 
+def _shared_tasks(
+    r: ForecasterResult, ref: ForecasterResult, rank_by: str, keep: np.ndarray,
+    failed: np.ndarray, ref_failed: np.ndarray,
+) -> np.ndarray:
+    """Tasks among ``keep`` that both ``r`` and the reference completed (``failed`` /
+    ``ref_failed``: their failed-task masks) and have a rank-metric score for."""
+    score = r.scores[rank_by].per_task
+    ref_score = ref.scores[rank_by].per_task
+    return keep & ~failed & ~ref_failed & ~np.isnan(score) & ~np.isnan(ref_score)
+
+
+def _relative(
+    r: ForecasterResult, ref: ForecasterResult, origin: np.ndarray, rank_by: str,
+    both: np.ndarray,
+) -> float:
+    """Rank metric of ``r`` over the reference's, both as fold means over the shared tasks
+    ``both`` (:func:`_shared_tasks`).
+
+    NaN when there is no shared task, or the reference's mean is 0 or undefined.
+    """
+    if not both.any():
+        return float("nan")
+    value, _ = _fold_mean_sd(r.scores[rank_by].per_task[both], origin[both])
+    ref_value, _ = _fold_mean_sd(ref.scores[rank_by].per_task[both], origin[both])
+    if M.info(rank_by).better == "abs":
+        value, ref_value = abs(value), abs(ref_value)
+    if not (np.isfinite(value) and np.isfinite(ref_value)) or ref_value == 0:
+        return float("nan")
+    return float(value / ref_value)
+
+
 def _versus_reference(
     r: ForecasterResult, ref: ForecasterResult, dr: DatasetResult, rank_by: str, horizon: int,
-    step: int,
+    step: int, both: np.ndarray,
 ) -> dict[str, object]:
     from runner.scoring.significance import compare_with_reference
 
-    both = ~r.failed & ~ref.failed
     score = r.scores[rank_by].per_task
     ref_score = ref.scores[rank_by].per_task
-    both &= ~np.isnan(score) & ~np.isnan(ref_score)
     if not both.any():
         return {"win_share": np.nan, "dm_better": np.nan, "dm_worse": np.nan,
                 "wilcoxon_p": np.nan, "significant": False}
@@ -68,146 +108,119 @@ def _versus_reference(
             "wilcoxon_p": c.wilcoxon_p, "significant": bool(c.significant)}
 
 
+def _origin_spacing(ev: Evaluation, dp: DatasetPlan) -> int:
+    """Steps between successive origins, which sets how many test blocks overlap.
+
+    ``step`` for origins that follow a rule; for a list of origins, its closest two.
+    """
+    w = ev.plan.config.windows
+    if w.origins is not None and len(dp.origins) > 1:
+        return int(np.diff(dp.origins).min())
+    return w.step or ev.plan.config.horizon
+
+
+def _summaries(column: str) -> tuple[str, ...]:
+    """The leaderboard columns of a metric: mean and sd over folds, and for a root metric
+    (RMSE, RMSSE) also the pooled figure."""
+    if M.metric_of(column).reduction == "root_mean":
+        return ("mean", "sd", "pooled")
+    return ("mean", "sd")
+
+
+def _pooled_root(per_task: np.ndarray) -> float:
+    """The root of the mean square over every scored (task, step): sqrt(mean(per_task ** 2)).
+
+    Each task's root metric is the root of the mean over its ``horizon`` steps, so the mean of
+    the squared task scores is the mean over all steps, as a cross-validated RMSE is pooled
+    (Hyndman & Athanasopoulos, FPP2 section 3.4). With horizon 1 a task's RMSE is its absolute
+    error, and only this pooled figure is an RMSE of the run.
+    """
+    done = per_task[np.isfinite(per_task)]
+    return float(np.sqrt(np.mean(done**2))) if done.size else float("nan")
+
+
 def build_leaderboard(ev: Evaluation) -> pd.DataFrame:
     """The leaderboard as a DataFrame in its fixed row and column order."""
+    rows = [row for dr in ev.datasets for row in dataset_rows(ev, dr)]
+    return pd.DataFrame(rows, columns=board_columns(ev))
+
+
+def board_columns(ev: Evaluation) -> list[str]:
+    """The leaderboard's columns, in order."""
+    cfg = ev.plan.config
+    head = ["dataset", "rank", "forecaster", "kind", "role", "series", "folds", "tasks", "failed",
+            "complete"]
+    cols = M.columns(cfg.metrics, tuple(cfg.intervals))
+    metric_cols = [f"{c}_{s}" for c in cols for s in _summaries(c)]
+    tail = [f"{cfg.rank_by}_rel", "win_share", "dm_better", "dm_worse", "wilcoxon_p",
+            "beats_reference"]
+    return head + metric_cols + tail
+
+
+def dataset_rows(
+    ev: Evaluation, dr: DatasetResult, keep: np.ndarray | None = None
+) -> list[dict[str, object]]:
+    """The leaderboard rows of one dataset, ranked, over the tasks ``keep`` selects.
+
+    ``keep`` is a boolean mask over the dataset's (series, fold) tasks; None takes them all
+    (the leaderboard). A subset (the tasks of one segment's series) gives that subset's
+    leaderboard by the same rules: fold means and sds over its tasks, ``complete`` when none
+    of its tasks failed, the relative score and every significance column on its tasks both
+    the forecaster and the reference completed, and ranks within it.
+    """
     cfg = ev.plan.config
     cols = M.columns(cfg.metrics, tuple(cfg.intervals))
     rank_by = cfg.rank_by
-    rows = []
-    for dr in ev.datasets:
-        dp = dr.plan
-        ref = next(r for r in dr.results if r.spec.name == dp.reference)
-        block = []
-        for r in dr.results:
-            ok = ~r.failed
-            row: dict[str, object] = {
-                "dataset": dp.panel.name,
-                "forecaster": r.spec.name,
-                "kind": r.spec.kind,
-                "role": r.spec.role,
-                "series": int(len(np.unique(dp.series[ok]))),
-                "folds": int(len(np.unique(dp.fold_group[ok]))),
-                "tasks": int(ok.sum()),
-                "failed": int(r.failed.sum()),
-            }
-            for col in cols:
-                mean, sd = _fold_mean_sd(r.scores[col].per_task, dp.fold_group)
-                row[f"{col}_mean"], row[f"{col}_sd"] = mean, sd
-            block.append(row)
-        ref_row = next(b for b in block if b["forecaster"] == dp.reference)
-        ref_value = ref_row[f"{rank_by}_mean"]
-        better = M.info(rank_by).better
-        for row, r in zip(block, dr.results):
-            value = row[f"{rank_by}_mean"]
-            with np.errstate(divide="ignore", invalid="ignore"):
-                rel = (abs(value) / abs(ref_value)) if better == "abs" else value / ref_value
-            row[f"{rank_by}_rel"] = float(rel) if np.isfinite(rel) else np.nan
-            if r is ref:
-                row.update(win_share=np.nan, dm_better=np.nan, dm_worse=np.nan,
-                           wilcoxon_p=np.nan)
-                row["beats_reference"] = False
-                continue
-            vs = _versus_reference(
-                r, ref, dr, rank_by, cfg.horizon, cfg.windows.step or cfg.horizon
-            )
-            significant = vs.pop("significant")
-            row.update(vs)
-            row["beats_reference"] = bool(
-                np.isfinite(rel) and rel < 1.0 and significant and row["failed"] == 0
-            )
-        ranks = _rank_order(
-            np.array([b[f"{rank_by}_mean"] for b in block], dtype=float),
-            [str(b["forecaster"]) for b in block],
-            rank_by,
+    dp = dr.plan
+    keep = np.ones(dp.n_tasks, dtype=bool) if keep is None else np.asarray(keep, dtype=bool)
+    origin = dp.origin[keep]
+    ref = next(r for r in dr.results if r.spec.name == dp.reference)
+    # each result's failed mask once: the property rebuilds it from the reasons at every call
+    failed_of = [r.failed for r in dr.results]
+    ref_failed = ref.failed
+    block = []
+    for r, r_failed in zip(dr.results, failed_of):
+        ok = ~r_failed & keep
+        failed = r_failed & keep
+        row: dict[str, object] = {
+            "dataset": dp.panel.name,
+            "forecaster": r.spec.name,
+            "kind": r.spec.kind,
+            "role": r.spec.role,
+            "series": int(len(np.unique(dp.series[ok]))),
+            "folds": int(len(np.unique(dp.origin[ok]))),
+            "tasks": int(ok.sum()),
+            "failed": int(failed.sum()),
+            "complete": not bool(failed.any()),
+        }
+        for col in cols:
+            per_task = r.scores[col].per_task[keep]
+            mean, sd = _fold_mean_sd(per_task, origin)
+            row[f"{col}_mean"], row[f"{col}_sd"] = mean, sd
+            if M.metric_of(col).reduction == "root_mean":
+                row[f"{col}_pooled"] = _pooled_root(per_task)
+        block.append(row)
+    for row, r, r_failed in zip(block, dr.results, failed_of):
+        both = _shared_tasks(r, ref, rank_by, keep, r_failed, ref_failed)
+        rel = _relative(r, ref, dp.origin, rank_by, both)
+        row[f"{rank_by}_rel"] = rel
+        if r is ref:
+            row.update(win_share=np.nan, dm_better=np.nan, dm_worse=np.nan,
+                       wilcoxon_p=np.nan)
+            row["beats_reference"] = False
+            continue
+        vs = _versus_reference(r, ref, dr, rank_by, cfg.horizon, _origin_spacing(ev, dp), both)
+        significant = vs.pop("significant")
+        row.update(vs)
+        row["beats_reference"] = bool(
+            np.isfinite(rel) and rel < 1.0 and significant and row["failed"] == 0
         )
-        for b, rank in zip(block, ranks):
-            b["rank"] = int(rank)
-        rows.extend(sorted(block, key=lambda b: b["rank"]))
-    head = ["dataset", "rank", "forecaster", "kind", "role", "series", "folds", "tasks", "failed"]
-    metric_cols = [f"{c}_{s}" for c in cols for s in ("mean", "sd")]
-    tail = [f"{rank_by}_rel", "win_share", "dm_better", "dm_worse", "wilcoxon_p",
-            "beats_reference"]
-    return pd.DataFrame(rows, columns=head + metric_cols + tail)
-
-
-def _fmt(v: object) -> str:
-    if isinstance(v, (bool, np.bool_)):
-        return "true" if v else "false"
-    if isinstance(v, (int, np.integer)):
-        return str(int(v))
-    if isinstance(v, (float, np.floating)):
-        if np.isnan(v):
-            return ""
-        if float(v).is_integer() and abs(v) < 1e15:
-            return str(int(v))
-        return format(float(v), FLOAT_FORMAT)
-    return str(v)
-
-
-def to_csv_text(board: pd.DataFrame) -> str:
-    """The leaderboard as CSV text with fixed formatting (the byte-identical guarantee)."""
-    lines = [",".join(board.columns)]
-    for row in board.itertuples(index=False):
-        cells = []
-        for v in row:
-            s = _fmt(v)
-            if any(ch in s for ch in ',"\n'):
-                s = '"' + s.replace('"', '""') + '"'
-            cells.append(s)
-        lines.append(",".join(cells))
-    return "\n".join(lines) + "\n"
-
-
-def to_markdown(board: pd.DataFrame, rank_by: str, metrics: list[str]) -> str:
-    """The leaderboard as Markdown tables (one per dataset) for reading and review comments."""
-    metric_cols = [c[: -len("_mean")] for c in board.columns if c.endswith("_mean")]
-    out = []
-    for dataset, block in board.groupby("dataset", sort=False):
-        out.append(f"## {dataset}\n")
-        head = ["rank", "forecaster", "role", "series", "folds", "failed"]
-        marks = {c: (c + " †" if c.split("_")[0] in M.UNRELIABLE else c) for c in metric_cols}
-        header = head + [marks[c] for c in metric_cols] + [f"{rank_by} vs reference",
-                                                             "beats reference"]
-        out.append("| " + " | ".join(header) + " |")
-        out.append("|" + "|".join("---" for _ in header) + "|")
-        for _, r in block.iterrows():
-            cells = [_fmt(r[h]) for h in head]
-            for c in metric_cols:
-                mean, sd = _fmt(r[f"{c}_mean"]), _fmt(r[f"{c}_sd"])
-                cells.append(f"{mean} ± {sd}" if sd else mean)
-            cells.append(_fmt(r[f"{rank_by}_rel"]))
-            cells.append("yes" if r["beats_reference"] else "")
-            out.append("| " + " | ".join(cells) + " |")
-        out.append("")
-    flagged = [m for m in metrics if m in M.UNRELIABLE]
-    notes = ["Scores are the mean ± standard deviation over folds of each fold's mean."]
-    notes += [f"† {m}: unreliable for comparing forecasts ({M.UNRELIABLE[m]})." for m in flagged]
-    failed = board[board["failed"] > 0]
-    for _, r in failed.iterrows():
-        notes.append(
-            f"{r['forecaster']} on {r['dataset']}: {r['failed']} failed task(s); scored on "
-            f"the {r['tasks']} that completed (see failures.csv)."
-        )
-    out.extend(notes)
-    return "\n".join(out) + "\n"
-
-
-def to_terminal(board: pd.DataFrame, rank_by: str) -> str:
-    """A compact fixed-width table for the terminal."""
-    lines = []
-    for dataset, block in board.groupby("dataset", sort=False):
-        names = [str(n) for n in block["forecaster"]]
-        width = max(10, *(len(n) for n in names))
-        lines.append(f"{dataset}")
-        lines.append(
-            f"  {'rank':>4}  {'forecaster':<{width}}  {'role':<9}  {rank_by:>10}  "
-            f"{'± sd':>9}  {'vs ref':>7}  {'beats':>5}  {'failed':>6}"
-        )
-        for _, r in block.iterrows():
-            lines.append(
-                f"  {r['rank']:>4}  {r['forecaster']:<{width}}  {r['role']:<9}  "
-                f"{_fmt(r[f'{rank_by}_mean']):>10}  {_fmt(r[f'{rank_by}_sd']):>9}  "
-                f"{_fmt(r[f'{rank_by}_rel']):>7}  {'yes' if r['beats_reference'] else '':>5}  "
-                f"{r['failed']:>6}"
-            )
-    return "\n".join(lines)
+    ranks = _rank_order(
+        np.array([b[f"{rank_by}_mean"] for b in block], dtype=float),
+        [str(b["forecaster"]) for b in block],
+        rank_by,
+        np.array([b["complete"] for b in block], dtype=bool),
+    )
+    for b, rank in zip(block, ranks):
+        b["rank"] = int(rank)
+    return sorted(block, key=lambda b: b["rank"])

@@ -27,6 +27,10 @@ definition gives the score of a task (reduced over its steps) and the score of a
 * ``pinball_L``: the mean pinball (quantile) loss of the two interval bounds read as the
   a/2 and 1 - a/2 quantiles (Koenker & Bassett 1978).
 
+Each metric is one entry of :data:`METRICS` (name, pointwise loss or per-task score,
+reduction, direction, flags); config checks, scoring, the leaderboard, diff and the report all
+read that table, so adding a metric is one entry plus its test.
+
 Undefined values (a zero scale, y = 0 for mape, a constant test block for r2) are NaN, never
 inf; :func:`score_tasks` reports which tasks produced them so the caller can warn.
 
@@ -39,48 +43,53 @@ counted as undefined).
 from __future__ import annotations
 
 import warnings
+from collections.abc import Callable
 from dataclasses import dataclass
 
 import numpy as np
 
-from runner.config import INTERVAL_METRICS
 
-#: Metrics the leaderboard flags as unreliable for comparing forecasts, and why.
-UNRELIABLE = {
-    "mape": "undefined or explosive near zero actuals and asymmetric",
-    "r2": "not a forecast accuracy measure",
-}
+@dataclass(frozen=True)
+class LossInput:
+    """What a pointwise loss may look at: (n, H) matrices and per-task (n,) scales.
+
+    ``lower`` / ``upper`` are the bounds of one interval level (``level`` percent) for interval
+    metrics, else None.
+    """
+
+    actual: np.ndarray
+    forecast: np.ndarray
+    mase_scale: np.ndarray
+    rmsse_scale: np.ndarray
+    lower: np.ndarray | None = None
+    upper: np.ndarray | None = None
+    level: float = float("nan")
 
 
 @dataclass(frozen=True)
-class MetricInfo:
-    """How a metric column is ordered: ``lower`` is better, ``abs`` (closest to 0) or ``target``."""
+class Metric:
+    """One metric: how it is computed, pooled and read.
 
+    ``loss`` gives the (n, H) pointwise loss; ``reduction`` turns it into a score: ``mean``, or
+    ``root_mean`` (the root of the mean, for RMSE-like metrics). A metric that is no mean of a
+    pointwise loss gives ``task_score`` instead (one value per task, none per step). ``better``
+    says how scores are ordered: ``lower``, ``higher``, ``abs`` (closest to zero) or ``target``
+    (closest to the interval level, for coverage). ``unreliable`` says why a metric is flagged
+    as unfit to compare forecasts (None when it is fine); ``per_level`` metrics need interval
+    levels and give one column per level (``coverage_80``); ``default`` metrics are scored when
+    the config lists none; ``can_rank`` says whether a leaderboard may be ordered by it.
+    """
+
+    name: str
+    summary: str
     better: str
-    target: float = 0.0
-
-
-def columns(metrics: list[str], levels: tuple[float, ...]) -> list[str]:
-    """Metric column names: interval metrics expand to one column per level (coverage_80)."""
-    out: list[str] = []
-    for m in metrics:
-        if m in INTERVAL_METRICS:
-            out.extend(f"{m}_{level:g}" for level in levels)
-        else:
-            out.append(m)
-    return out
-
-
-def info(column: str) -> MetricInfo:
-    """Ordering of a metric column."""
-    base, _, level = column.partition("_")
-    if base == "me":
-        return MetricInfo("abs")
-    if base == "r2":
-        return MetricInfo("higher")
-    if base == "coverage":
-        return MetricInfo("target", float(level))
-    return MetricInfo("lower")
+    loss: Callable[[LossInput], np.ndarray] | None = None
+    task_score: Callable[[np.ndarray, np.ndarray], np.ndarray] | None = None
+    reduction: str = "mean"
+    unreliable: str | None = None
+    per_level: bool = False
+    default: bool = False
+    can_rank: bool = True
 
 
 #: Relative change of a leaderboard mean that ``castgrid diff`` reads as numerical noise when
@@ -121,6 +130,130 @@ def _safe_div(num: np.ndarray, den: np.ndarray) -> np.ndarray:
     return out
 
 
+def _error(x: LossInput) -> np.ndarray:
+    return x.actual - x.forecast
+
+
+def _coverage(x: LossInput) -> np.ndarray:
+    inside = (x.actual >= x.lower) & (x.actual <= x.upper)
+    out = 100.0 * inside.astype(float)
+    out[np.isnan(x.lower) | np.isnan(x.upper) | np.isnan(x.actual)] = np.nan
+    return out
+
+
+def _winkler(x: LossInput) -> np.ndarray:
+    alpha = 1.0 - x.level / 100.0
+    below = np.clip(x.lower - x.actual, 0, None)
+    above = np.clip(x.actual - x.upper, 0, None)
+    return (x.upper - x.lower) + (2.0 / alpha) * below + (2.0 / alpha) * above
+
+
+def _pinball(x: LossInput) -> np.ndarray:
+    # the two bounds read as the a/2 and 1 - a/2 quantiles, their losses averaged
+    alpha = 1.0 - x.level / 100.0
+    tau_lo, tau_hi = alpha / 2.0, 1.0 - alpha / 2.0
+    lo = (x.actual - x.lower) * (tau_lo - (x.actual < x.lower))
+    hi = (x.actual - x.upper) * (tau_hi - (x.actual < x.upper))
+    return (lo + hi) / 2.0
+
+
+def _r2(actual: np.ndarray, forecast: np.ndarray) -> np.ndarray:
+    # over the observed steps only: a missing actual is not scored
+    observed = ~np.isnan(actual)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        a = np.where(observed, actual, 0.0)
+        sse = np.where(observed, (actual - forecast) ** 2, 0.0).sum(axis=1)
+        mean = a.sum(axis=1) / observed.sum(axis=1)
+        sst = np.where(observed, (a - mean[:, None]) ** 2, 0.0).sum(axis=1)
+    out = 1.0 - _safe_div(sse, sst)
+    out[~observed.any(axis=1)] = np.nan
+    return out
+
+
+#: Every metric castgrid knows, in the order the documentation lists them.
+METRICS: tuple[Metric, ...] = (
+    Metric("me", "mean error (bias)", "abs", loss=_error),
+    Metric("mae", "mean absolute error", "lower", loss=lambda x: np.abs(_error(x)), default=True),
+    Metric("mse", "mean squared error", "lower", loss=lambda x: _error(x) ** 2),
+    Metric("rmse", "root mean squared error", "lower", loss=lambda x: _error(x) ** 2,
+           reduction="root_mean", default=True),
+    Metric("mape", "mean absolute percentage error", "lower",
+           loss=lambda x: 100.0 * np.abs(_safe_div(_error(x), x.actual)),
+           unreliable="undefined or explosive near zero actuals and asymmetric"),
+    Metric("mase", "mean absolute scaled error", "lower",
+           loss=lambda x: _safe_div(np.abs(_error(x)), x.mase_scale[:, None] + 0 * x.actual),
+           default=True),
+    Metric("rmsse", "root mean squared scaled error", "lower",
+           loss=lambda x: _safe_div(_error(x) ** 2, x.rmsse_scale[:, None] + 0 * x.actual),
+           reduction="root_mean", default=True),
+    Metric("smape", "symmetric MAPE (M4 definition)", "lower",
+           loss=lambda x: 200.0 * _safe_div(np.abs(_error(x)), np.abs(x.actual)
+                                            + np.abs(x.forecast)),
+           default=True),
+    Metric("r2", "coefficient of determination over the test block", "higher", task_score=_r2,
+           unreliable="not a forecast accuracy measure", can_rank=False),
+    Metric("coverage", "percent of actuals inside the interval", "target", loss=_coverage,
+           per_level=True, can_rank=False),
+    Metric("winkler", "interval score", "lower", loss=_winkler, per_level=True, can_rank=False),
+    Metric("pinball", "pinball loss of the interval bounds", "lower", loss=_pinball,
+           per_level=True, can_rank=False),
+)
+BY_NAME: dict[str, Metric] = {m.name: m for m in METRICS}
+#: Metrics scored when the config lists none.
+DEFAULT_METRICS: tuple[str, ...] = tuple(m.name for m in METRICS if m.default)
+#: Metrics the leaderboard flags as unreliable for comparing forecasts, and why.
+UNRELIABLE: dict[str, str] = {m.name: m.unreliable for m in METRICS if m.unreliable}
+#: The mark beside a flagged metric in every table a person reads.
+FLAG = "†"
+
+
+def flag_note(column: str) -> str | None:
+    """The footnote of a metric column flagged in :data:`UNRELIABLE` (None when not flagged).
+
+    >>> flag_note("r2")
+    '† r2: unreliable for comparing forecasts (not a forecast accuracy measure).'
+    >>> flag_note("mae") is None
+    True
+    """
+    base = column.partition("_")[0]
+    why = UNRELIABLE.get(base)
+    return None if why is None else f"{FLAG} {base}: unreliable for comparing forecasts ({why})."
+
+
+@dataclass(frozen=True)
+class MetricInfo:
+    """How a metric column is ordered: ``lower`` / ``higher`` is better, ``abs`` (closest to 0)
+    or ``target`` (closest to ``target``)."""
+
+    better: str
+    target: float = 0.0
+
+
+def metric_of(column: str) -> Metric:
+    """The table entry behind a metric column (``coverage_80`` -> coverage)."""
+    base = column.partition("_")[0]
+    return BY_NAME[base]
+
+
+def columns(metrics: list[str], levels: tuple[float, ...]) -> list[str]:
+    """Metric column names: per-level metrics expand to one column per level (coverage_80)."""
+    out: list[str] = []
+    for name in metrics:
+        if BY_NAME[name].per_level:
+            out.extend(f"{name}_{level:g}" for level in levels)
+        else:
+            out.append(name)
+    return out
+
+
+def info(column: str) -> MetricInfo:
+    """Ordering of a metric column."""
+    m = metric_of(column)
+    if m.better == "target":
+        return MetricInfo("target", float(column.partition("_")[2]))
+    return MetricInfo(m.better)
+
+
 @dataclass
 class Scored:
     """Scores of one metric column: per task (n,), per step (H,), and tasks that were NaN."""
@@ -134,47 +267,16 @@ def pointwise_loss(
     column: str, actual: np.ndarray, forecast: np.ndarray, mase_scale: np.ndarray,
     rmsse_scale: np.ndarray,
 ) -> np.ndarray | None:
-    """The (n, H) pointwise loss whose mean (or root mean) is the metric; None for r2/interval."""
-    e = actual - forecast
-    if column == "me":
-        return e
-    if column == "mae":
-        return np.abs(e)
-    if column in ("mse", "rmse"):
-        return e**2
-    if column == "mape":
-        return 100.0 * np.abs(_safe_div(e, actual))
-    if column == "smape":
-        return 200.0 * _safe_div(np.abs(e), np.abs(actual) + np.abs(forecast))
-    if column == "mase":
-        return _safe_div(np.abs(e), mase_scale[:, None] + 0 * e)
-    if column == "rmsse":
-        return _safe_div(e**2, rmsse_scale[:, None] + 0 * e)
-    return None
-
-
-def _interval_loss(
-    base: str, level: float, actual: np.ndarray, lower: np.ndarray, upper: np.ndarray
-) -> np.ndarray:
-    alpha = 1.0 - level / 100.0
-    if base == "coverage":
-        inside = (actual >= lower) & (actual <= upper)
-        out = 100.0 * inside.astype(float)
-        out[np.isnan(lower) | np.isnan(upper) | np.isnan(actual)] = np.nan
-        return out
-    if base == "winkler":
-        below = np.clip(lower - actual, 0, None)
-        above = np.clip(actual - upper, 0, None)
-        return (upper - lower) + (2.0 / alpha) * below + (2.0 / alpha) * above
-    # pinball at the a/2 and 1 - a/2 quantiles, averaged over the two bounds
-    tau_lo, tau_hi = alpha / 2.0, 1.0 - alpha / 2.0
-    lo = (actual - lower) * (tau_lo - (actual < lower))
-    hi = (actual - upper) * (tau_hi - (actual < upper))
-    return (lo + hi) / 2.0
+    """The (n, H) pointwise loss whose mean (or root mean) is the metric; None when the metric
+    has no pointwise loss (r2) or needs interval bounds."""
+    m = metric_of(column)
+    if m.loss is None or m.per_level:
+        return None
+    return m.loss(LossInput(actual, forecast, mase_scale, rmsse_scale))
 
 
 def _reduce(
-    column: str, loss: np.ndarray, axis: int, observed: np.ndarray | None = None
+    metric: Metric, loss: np.ndarray, axis: int, observed: np.ndarray | None = None
 ) -> np.ndarray:
     # an all-NaN column (a forecaster without intervals) is simply NaN: no warning wanted
     with np.errstate(invalid="ignore", divide="ignore"), warnings.catch_warnings():
@@ -190,7 +292,7 @@ def _reduce(
                 mean[count == 0] = np.nan
         else:
             mean = np.nanmean(loss, axis=axis)
-    if column in ("rmse", "rmsse"):
+    if metric.reduction == "root_mean":
         return np.sqrt(mean)
     return mean
 
@@ -227,29 +329,92 @@ def score_tasks(
     observed = ~np.isnan(actual)
     scored = observed.any(axis=1)  # a task whose actuals are all missing has no score
     for col in cols:
-        base, _, lv = col.partition("_")
-        if base in INTERVAL_METRICS:
-            i = levels.index(float(lv))
-            loss = _interval_loss(base, float(lv), actual, lower[i], upper[i])
-        elif col == "r2":
-            with np.errstate(invalid="ignore", divide="ignore"):
-                a = np.where(observed, actual, 0.0)
-                sse = np.where(observed, (actual - forecast) ** 2, 0.0).sum(axis=1)
-                mean = a.sum(axis=1) / observed.sum(axis=1)
-                sst = np.where(observed, (a - mean[:, None]) ** 2, 0.0).sum(axis=1)
-            per_task = 1.0 - _safe_div(sse, sst)
+        m = metric_of(col)
+        if m.task_score is not None:
+            per_task = m.task_score(actual, forecast)
             per_task[failed | ~scored] = np.nan
-            undefined = ok & scored & np.isnan(per_task)
-            out[col] = Scored(per_task, np.full(actual.shape[1], np.nan), undefined)
+            out[col] = Scored(per_task, np.full(actual.shape[1], np.nan),
+                              ok & scored & np.isnan(per_task))
             continue
-        else:
-            loss = pointwise_loss(col, actual, forecast, mase_scale, rmsse_scale)
-        per_task = _reduce(col, loss, axis=1, observed=observed)
+        x = LossInput(actual, forecast, mase_scale, rmsse_scale)
+        if m.per_level:
+            level = float(col.partition("_")[2])
+            i = levels.index(level)
+            x = LossInput(actual, forecast, mase_scale, rmsse_scale, lower[i], upper[i], level)
+        loss = m.loss(x)
+        per_task = _reduce(m, loss, axis=1, observed=observed)
         per_task[failed] = np.nan
         undefined = ok & scored & np.isnan(per_task)
-        if base in INTERVAL_METRICS:
+        if m.per_level:
             # a forecaster without intervals has NaN bounds everywhere: not "undefined"
-            undefined &= ~np.isnan(lower[i]).all(axis=1)
-        per_step = _reduce(col, loss[ok], axis=0) if ok.any() else np.full(loss.shape[1], np.nan)
+            undefined &= ~np.isnan(x.lower).all(axis=1)
+        per_step = _reduce(m, loss[ok], axis=0) if ok.any() else np.full(loss.shape[1], np.nan)
         out[col] = Scored(per_task, per_step, undefined)
     return out
+
+
+#: The rank metric when the config sets none and lists it (or lists no metrics).
+DEFAULT_RANK_BY = "mase"
+
+
+def check_metrics(
+    metrics: list[str] | None, rank_by: str | None, has_intervals: bool, source: str
+) -> tuple[str, str | None]:
+    """Check the config's metric choices; return the rank metric and a note when a default gave
+    way.
+
+    Names must be in :data:`METRICS`; per-level metrics need ``intervals``. A ``rank_by`` the
+    user wrote must be listed and able to order a leaderboard, else it is an error. Without
+    ``rank_by`` the default yields to the list the user wrote: :data:`DEFAULT_RANK_BY` when it
+    is listed, else the first listed metric that can rank, preferring one not flagged as
+    unreliable (the note says which). Raises
+    :class:`~runner.errors.ConfigError` naming the field.
+    """
+    from runner.errors import ConfigError, brief
+
+    known = ", ".join(BY_NAME)
+    chosen = list(DEFAULT_METRICS) if metrics is None else metrics
+    for name in chosen:
+        if name not in BY_NAME:
+            raise ConfigError(
+                f"{source}: metrics: unknown metric {brief(name)}; expected some of {known}"
+            )
+    if any(BY_NAME[m].per_level for m in chosen) and not has_intervals:
+        raise ConfigError(f"{source}: metrics: interval metrics need intervals: [levels]")
+    note = None
+    if rank_by is None:
+        # reliable metrics first: a default never picks a flagged metric when another can rank
+        rankable = sorted((m for m in chosen if BY_NAME[m].can_rank),
+                          key=lambda m: m in UNRELIABLE)
+        if DEFAULT_RANK_BY in chosen:
+            rank_by = DEFAULT_RANK_BY
+        elif rankable:
+            rank_by = rankable[0]
+            note = (f"rank_by: {rank_by} (the default {DEFAULT_RANK_BY} is not among metrics; "
+                    "the first listed metric that can rank)")
+        else:
+            raise ConfigError(
+                f"{source}: metrics: none of {brief(chosen)} can order a leaderboard; add a "
+                f"point error metric such as {DEFAULT_RANK_BY}"
+            )
+    elif rank_by not in BY_NAME:
+        raise ConfigError(
+            f"{source}: rank_by: unknown metric {brief(rank_by)}; expected one of {known}"
+        )
+    elif rank_by not in chosen:
+        raise ConfigError(f"{source}: rank_by: {rank_by!r} is not among metrics {chosen}")
+    if not BY_NAME[rank_by].can_rank:
+        raise ConfigError(
+            f"{source}: rank_by: {rank_by!r} cannot order a leaderboard; "
+            "expected a point error metric such as mase"
+        )
+    return rank_by, note
+
+
+def unreliable_rank_warning(rank_by: str) -> str | None:
+    """A warning when the leaderboard is ordered by a metric flagged as unreliable."""
+    why = UNRELIABLE.get(rank_by)
+    if why is None:
+        return None
+    return (f"rank_by: {rank_by} is unreliable for comparing forecasts ({why}); the ranking "
+            f"may mislead, consider {DEFAULT_RANK_BY}")

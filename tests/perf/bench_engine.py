@@ -7,18 +7,28 @@ underneath), so 3,000 fits per run. Prints the wall-clock seconds of
 * cold, jobs=1 (no cache) and cold, jobs=2 (filling a new cache): target jobs=2 >= 1.7x faster;
 * warm, jobs=2 (the same tasks again): target >= 20x faster than the cold jobs=2 run;
 * after appending one step (6 observations) to every series: target <= 1.5 x (share of new
-  folds) x cold + 1 s.
+  folds) x cold + 1 s;
+* ``--end-to-end``: the same series and models through ``castgrid run`` (a subprocess, as a
+  user runs it, with the six baselines, an 80% interval and the report): a cold run at jobs=2
+  filling a new cache, then the warm rerun with every model task cached (best of ``--rounds``;
+  target under 0.8 s), its CPU time (``getrusage(RUSAGE_CHILDREN)``), and which heavy
+  libraries the warm run imported (``python -X importtime``).
 
 The series are windows of open datasets bundled with statsmodels (macrodata, sunspots, Nile,
-CO2, El Nino). Run: ``/opt/cg-venv/bin/python tests/perf/bench_engine.py [--series N]``.
+CO2, El Nino). Run: ``python tests/perf/bench_engine.py [--series N] [--end-to-end]
+[--rounds N]``.
 """
 
 from __future__ import annotations
 
 import argparse
 import os
+import resource
+import subprocess
+import sys
 import tempfile
 import time
+from pathlib import Path
 
 import numpy as np
 import statsmodels.api as sm
@@ -82,10 +92,101 @@ def timed(tasks, shared, **kw):
     return time.perf_counter() - t0, out, counts
 
 
+E2E_CONFIG = """
+experiment: bench-engine
+horizon: {horizon}
+datasets:
+  - {{name: pool, path: pool.csv, series: id, time: t, target: y, season: 4}}
+windows: {{scheme: expanding, train: {train}, step: {step}, folds: {folds}}}
+models:
+  - {{name: arima, kind: arima, params: {{order: [1, 1, 1]}}}}
+  - {{name: theta, kind: theta}}
+  - {{name: ets, kind: ets}}
+intervals: [80]
+execution: {{jobs: 2, cache: {cache}}}
+"""
+
+#: Modules whose import the warm rerun should not need (their results are cached or known).
+HEAVY = ("statsmodels", "scipy", "matplotlib")
+
+
+def _children_cpu() -> float:
+    ru = resource.getrusage(resource.RUSAGE_CHILDREN)
+    return ru.ru_utime + ru.ru_stime
+
+
+def _castgrid(cfg: Path, out: Path, *flags: str) -> tuple[float, float, str]:
+    """Run ``castgrid run`` in a subprocess: (wall s, CPU s of the children, stderr)."""
+    cpu0 = _children_cpu()
+    t0 = time.perf_counter()
+    res = subprocess.run(
+        [sys.executable, *flags, "-m", "runner", "run", str(cfg), "--out", str(out), "--quiet"],
+        capture_output=True, text=True,
+    )
+    wall = time.perf_counter() - t0
+    if res.returncode not in (0, 3):
+        raise SystemExit(f"castgrid run failed ({res.returncode}):\n{res.stderr}")
+    return wall, _children_cpu() - cpu0, res.stderr
+
+
+def end_to_end(n_series: int, rounds: int) -> None:
+    """Cold run at jobs=2, then the warm rerun (everything cached), through ``castgrid run``."""
+    import compileall
+
+    import runner
+
+    # As an installed package has them: byte-code files of castgrid's modules (this machine
+    # sets PYTHONDONTWRITEBYTECODE, so without them every run would compile the sources).
+    compileall.compile_dir(Path(runner.__file__).parent, quiet=1)
+    series = windows(n_series, LENGTH)
+    with tempfile.TemporaryDirectory() as tmp:
+        folder = Path(tmp)
+        lines = ["id,t,y"]
+        for i, s in enumerate(series):
+            lines.extend(f"s{i:04d},{t},{float(v)!r}" for t, v in enumerate(s))
+        (folder / "pool.csv").write_text("\n".join(lines) + "\n")
+        cfg = folder / "bench.yaml"
+        cfg.write_text(E2E_CONFIG.format(horizon=HORIZON, train=TRAIN, step=STEP, folds=FOLDS,
+                                         cache=folder / "cache"))
+        out = folder / "out"
+        load = os.getloadavg()[0]
+        wall, cpu, _ = _castgrid(cfg, out)
+        print(f"end to end: {n_series} series x {FOLDS} folds x 3 models + 6 baselines; "
+              f"load average {load:.2f} on {os.cpu_count()} cores")
+        print(f"  cold castgrid run, jobs=2  {wall:7.2f} s wall, {cpu:6.2f} s CPU "
+              "(parent and workers)")
+        walls, cpus = [], []
+        for _ in range(rounds):
+            w, c, _ = _castgrid(cfg, out)
+            walls.append(w)
+            cpus.append(c)
+        print(f"  warm castgrid run          {min(walls):7.2f} s wall, {min(cpus):6.2f} s CPU "
+              f"(best of {rounds}; rounds {', '.join(f'{w:.2f}' for w in walls)}; target "
+              f"< 0.8 s: {'met' if min(walls) < 0.8 else 'NOT met'}); {wall / min(walls):.1f}x "
+              "faster than cold")
+        _, _, err = _castgrid(cfg, out, "-X", "importtime")
+        cumulative: dict[str, int] = {}
+        for line in err.splitlines():
+            if not line.startswith("import time:") or "|" not in line:
+                continue
+            _, cum, name = (part.strip() for part in line[len("import time:"):].split("|"))
+            top = name.split(".")[0]
+            if top in HEAVY and cum.isdigit():
+                cumulative[top] = max(cumulative.get(top, 0), int(cum))
+        imported = ", ".join(f"{k} ({v / 1e6:.2f} s)" for k, v in sorted(cumulative.items()))
+        print(f"  heavy imports in the warm run: {imported or 'none'}")
+
+
 def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--series", type=int, default=200)
+    parser.add_argument("--end-to-end", action="store_true",
+                        help="only the castgrid run cold / warm case")
+    parser.add_argument("--rounds", type=int, default=3, help="warm runs (best is reported)")
     args = parser.parse_args()
+    if args.end_to_end:
+        end_to_end(args.series, args.rounds)
+        return
     tasks, shared = work(windows(args.series, LENGTH))
     print(f"{args.series} series x {FOLDS} folds x 3 models = {len(tasks)} tasks; "
           f"load average at start {os.getloadavg()[0]:.2f} on {os.cpu_count()} cores")

@@ -7,7 +7,6 @@ at ``models[i].params.<name>``.
 
 from __future__ import annotations
 
-import json
 import warnings
 from collections.abc import Iterator, Sequence
 from contextlib import contextmanager
@@ -15,6 +14,7 @@ from typing import Any
 
 import numpy as np
 
+from runner.errors import brief
 from runner.forecasters.contract import Forecast
 
 
@@ -23,11 +23,9 @@ class ConvergenceError(RuntimeError):
 
 
 def shown(value: Any) -> str:
-    """A value as the user wrote it in YAML/JSON, for error messages."""
-    try:
-        return json.dumps(value)
-    except (TypeError, ValueError):
-        return repr(value)
+    """A value as the user wrote it in YAML/JSON, for error messages (at most ~80 characters:
+    a huge value, such as nested YAML aliases, must not flood or stall the message)."""
+    return brief(value)
 
 
 def int_tuple(value: Any, name: str, length: int | tuple[int, ...]) -> tuple[int, ...]:

@@ -15,14 +15,20 @@ forecast package for R", *Journal of Statistical Software* 27(3), built here on 
    the (seasonally differenced) series: while the test rejects at ``alpha`` (5%), difference
    once more, up to ``d_up_to``. statsmodels' p-values are interpolated in the KPSS table and
    clipped to [0.01, 0.1].
-3. Stepwise search over (p, q, P, Q, constant) with d and D fixed, by AICc (the paper's step
-   text says AIC; AICc is what the brief and its later practice use): fit the four starting
-   models (2,d,2)(1,D,1), (0,d,0)(0,D,0), (1,d,0)(1,D,0), (0,d,1)(0,D,1) (seasonal parts only
-   when m > 1), with a constant when d + D <= 1; keep the best; then repeatedly try its
-   neighbours -- one of p, q, P, Q changed by +-1; p and q both by +-1; P and Q both by +-1;
-   the constant toggled -- and move to the first one with lower AICc, until none is lower.
-   Orders are bounded by ``p_up_to``, ``q_up_to``, ``P_up_to``, ``Q_up_to`` and ``p + q + P + Q <=
-   terms_up_to``, and at most ``fits_up_to`` models are fitted.
+3. Stepwise search over (p, q, P, Q, constant) with d and D fixed, by AICc, as Hyndman &
+   Athanasopoulos describe it (*Forecasting: Principles and Practice*, 3rd ed., 2021, section
+   9.7): fit the four starting models (2,d,2)(1,D,1), (0,d,0)(0,D,0), (1,d,0)(1,D,0),
+   (0,d,1)(0,D,1) (seasonal parts only when m > 1) with a constant unless d + D = 2, and,
+   when d + D <= 1, also (0,d,0)(0,D,0) without one; the best is the current model. Then
+   consider its variations -- p and/or q changed by +-1 (all eight moves), the same for P
+   and/or Q, the constant included or dropped -- and make the best of them the current model
+   if its AICc is lower; repeat until no variation is lower. Orders are bounded by
+   ``p_up_to``, ``q_up_to``, ``P_up_to``, ``Q_up_to`` and ``p + q + P + Q <= terms_up_to``,
+   and at most ``fits_up_to`` models are fitted (the search stops with the best so far).
+
+   Checked against FPP2 section 8.5: on the uschange consumption series (non-seasonal) the
+   search ends at the book's ARIMA(1,0,3) with a mean, AICc 342.08, although ARIMA(3,0,0)
+   with a mean has a lower AICc (340.67): a stepwise search finds a local minimum.
 
 A candidate is discarded when its optimiser does not converge, its AICc is not finite, or an
 AR or MA root lies within 1.01 of the unit circle (the paper rejects models close to
@@ -37,9 +43,6 @@ from __future__ import annotations
 from typing import Any
 
 import numpy as np
-from statsmodels.tsa.arima.model import ARIMA
-from statsmodels.tsa.seasonal import STL
-from statsmodels.tsa.stattools import kpss
 
 from runner.forecasters.contract import Forecast
 from runner.forecasters.models._common import (
@@ -64,6 +67,8 @@ Candidate = tuple[int, int, int, int, bool]  # p, q, P, Q, constant
 
 def seasonal_strength(x: np.ndarray, m: int) -> float:
     """``max(0, 1 - Var(remainder) / Var(seasonal + remainder))`` from an STL decomposition."""
+    from statsmodels.tsa.seasonal import STL  # here: validating needs no statsmodels
+
     with quiet():
         fit = STL(x, period=m).fit()
     rem = np.asarray(fit.resid)
@@ -83,6 +88,8 @@ def choose_seasonal_d(x: np.ndarray, m: int, D_up_to: int) -> int:
 
 def choose_d(x: np.ndarray, d_up_to: int, alpha: float) -> int:
     """Difference while the KPSS test (level stationarity, short lag) rejects at ``alpha``."""
+    from statsmodels.tsa.stattools import kpss  # here: see seasonal_strength
+
     d = 0
     while d < d_up_to and x.shape[0] >= MIN_LENGTH and np.ptp(x) > 0:
         lags = int(4 * (x.shape[0] / 100.0) ** 0.25)
@@ -117,7 +124,7 @@ class ArimaSearch:
     terms_up_to:
         Bound on ``p + q + P + Q``.
     fits_up_to:
-        Most models fitted per training window (bounds the run time).
+        Most models fitted per training window (bounds the run time; 60).
     seasonal:
         ``false`` ignores the dataset's season (a non-seasonal search).
     alpha:
@@ -127,7 +134,7 @@ class ArimaSearch:
     ``aicc`` and how many models were fitted.
     """
 
-    version = "1"
+    version = "2"  # 2: FPP3 9.7 search (five starts, eight p/q moves); intervals over T - K
     uses_covariates = True
 
     def __init__(
@@ -139,7 +146,7 @@ class ArimaSearch:
         d_up_to: Any = 2,
         D_up_to: Any = 1,
         terms_up_to: Any = 5,
-        fits_up_to: Any = 30,
+        fits_up_to: Any = 60,
         seasonal: Any = True,
         alpha: Any = 0.05,
     ) -> None:
@@ -185,6 +192,8 @@ class ArimaSearch:
         season = season_length(season, "arima_search")
         n = y.shape[0]
         need_length(n, MIN_LENGTH, "arima_search", "the automatic order search")
+        from statsmodels.tsa.arima.model import ARIMA  # here: validating needs no statsmodels
+
         exog = covariate_matrix(covariates, n, "arima_search", "training")
         m = season if self.seasonal and season > 1 else 1
 
@@ -229,33 +238,33 @@ class ArimaSearch:
             scores[c] = aicc
             return aicc
 
-        const0 = integration <= 1
+        with_constant = integration <= 1
         if m > 1:
             starts = [(2, 2, 1, 1), (0, 0, 0, 0), (1, 0, 1, 0), (0, 1, 0, 1)]
         else:
             starts = [(2, 2, 0, 0), (0, 0, 0, 0), (1, 0, 0, 0), (0, 1, 0, 0)]
-        best: Candidate | None = None
-        for p, q, sp, sq in starts:
-            c = (
+        candidates = [
+            (
                 min(p, self.p_up_to),
                 min(q, self.q_up_to),
                 min(sp, self.P_up_to),
                 min(sq, self.Q_up_to),
-                const0,
+                with_constant,
             )
-            if score(c) < (scores[best] if best is not None else np.inf):
-                best = c
+            for p, q, sp, sq in starts
+        ]
+        if with_constant:
+            candidates.append((0, 0, 0, 0, False))
+        best = self._lowest(candidates, score)
         if best is None:
             raise ConvergenceError(
                 f"arima_search: none of the starting models (d={d}, D={big_d}) could be fitted"
             )
-        improved = True
-        while improved:
-            improved = False
-            for c in self._neighbours(best, m):
-                if score(c) < scores[best]:
-                    best, improved = c, True
-                    break
+        while True:
+            move = self._lowest(self._neighbours(best, m), score)
+            if move is None or scores[move] >= scores[best]:
+                break
+            best = move
         res = fitted[best]
         p, q, sp, sq, const = best
         self.result_ = res
@@ -270,26 +279,24 @@ class ArimaSearch:
         return self
 
     @staticmethod
+    def _lowest(
+        candidates: list[Candidate], score: Any
+    ) -> Candidate | None:
+        """The candidate with the lowest finite score (the first one on ties), or None."""
+        best: Candidate | None = None
+        for c in candidates:
+            if np.isfinite(score(c)) and (best is None or score(c) < score(best)):
+                best = c
+        return best
+
+    @staticmethod
     def _neighbours(c: Candidate, m: int) -> list[Candidate]:
+        """FPP3 9.7's variations: p and/or q by +-1, P and/or Q by +-1, the constant toggled."""
         p, q, sp, sq, const = c
-        out: list[Candidate] = []
-        for dp, dq, dsp, dsq in (
-            (1, 0, 0, 0),
-            (-1, 0, 0, 0),
-            (0, 1, 0, 0),
-            (0, -1, 0, 0),
-            (0, 0, 1, 0),
-            (0, 0, -1, 0),
-            (0, 0, 0, 1),
-            (0, 0, 0, -1),
-            (1, 1, 0, 0),
-            (-1, -1, 0, 0),
-            (0, 0, 1, 1),
-            (0, 0, -1, -1),
-        ):
-            if m < 2 and (dsp or dsq):
-                continue
-            out.append((p + dp, q + dq, sp + dsp, sq + dsq, const))
+        moves = [(a, b) for a in (-1, 0, 1) for b in (-1, 0, 1) if (a, b) != (0, 0)]
+        out = [(p + a, q + b, sp, sq, const) for a, b in moves]
+        if m > 1:
+            out += [(p, q, sp + a, sq + b, const) for a, b in moves]
         out.append((p, q, sp, sq, not const))
         return out
 
