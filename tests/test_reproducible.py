@@ -4,8 +4,9 @@ Another machine is emulated by another OpenBLAS kernel: OpenBLAS picks a kernel 
 ``OPENBLAS_CORETYPE`` forces one (OpenBLAS documentation, "runtime variables"; the kernel in use
 is what ``threadpoolctl.threadpool_info()`` reports as ``architecture``). Two runs of the same
 config under two kernels must give forecasts within castgrid diff's relative tolerance
-(:data:`runner.scoring.metrics.NOISE_RELATIVE`, 0.1%), the manifests must name the kernels,
-and ``castgrid diff`` must name the platform change and find no change beyond tolerance.
+(:data:`runner.scoring.metrics.NOISE_RELATIVE`), the manifests must name the kernels, and
+``castgrid diff`` must name the platform change and find no change beyond tolerance. ETS fits
+where statsmodels' default settings disagree most must agree within 0.1%.
 
 The kernels are compared on ETS fits, which iterate to an optimum, and end to end on a small
 run with a seasonal ARIMA (a Kalman filter on BLAS).
@@ -97,7 +98,8 @@ def test_ets_estimates_agree_across_blas_kernels(kernels) -> None:
         out, err = proc.communicate(timeout=900)
         assert proc.returncode == 0, err
         points[k] = np.array(json.loads(out))
-    np.testing.assert_allclose(points["Prescott"], points["Haswell"], rtol=NOISE_RELATIVE)
+    # measured 3e-5 at most (README); statsmodels' default settings give 11%, 8% and 3%
+    np.testing.assert_allclose(points["Prescott"], points["Haswell"], rtol=1e-3)
 
 
 def test_manifest_names_the_kernel_and_diff_the_platform_change(tmp_path: Path, kernels,

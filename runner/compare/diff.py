@@ -8,10 +8,12 @@ so a better score can be told apart from different data or a different machine.
 :meth:`Diff.worse_than` backs ``--fail-if-worse PCT``, which makes the command a gate: exit
 code 4 when a candidate's rank metric got worse by more than PCT percent.
 
-A change of a score within its numerical tolerance
-(:func:`runner.scoring.metrics.noise_tolerance`: 0.1% of the value, one interval hit per fold
-for coverage) is shown as "within tolerance": it is what another CPU or BLAS kernel does to the
-same computation. It is not a change in the closing line and never trips ``--fail-if-worse``.
+On one platform a rerun gives the same bits, so every difference counts. When the two
+manifests record different platforms (or either records none), a score that moved by no more
+than its numerical tolerance (:func:`runner.scoring.metrics.noise_tolerance`: 2% of the value,
+5% for interval scores, one interval hit per fold for coverage) is shown as "within
+tolerance": what another CPU or BLAS kernel does to the same computation. It is not a change in
+the closing line and never trips ``--fail-if-worse``.
 
 OLD and NEW are results folders or ``REV:path`` read from git (see :mod:`runner.output.reader`).
 """
@@ -392,6 +394,10 @@ def compare(old: Results, new: Results) -> Diff:
     ]
     old_ref, new_ref = old.manifest.get("reference") or {}, new.manifest.get("reference") or {}
     horizon = int((old.manifest.get("config") or {}).get("horizon") or 0)
+    platforms = platform_changes(old.manifest, new.manifest)
+    # the same platform gives the same bits: there, every difference is real
+    same_platform = ("platform" in old.manifest and "platform" in new.manifest
+                     and not platforms)
 
     datasets = []
     for name in dict.fromkeys(new.datasets() + old.datasets()):
@@ -415,7 +421,7 @@ def compare(old: Results, new: Results) -> Diff:
                 None if n is None else _rank(n["rank"]),
                 in_old=o is not None, in_new=n is not None,
                 failed=(_failed(o), _failed(n)),
-                tolerance=_tolerances(o, metrics, horizon),
+                tolerance={} if same_platform else _tolerances(o, metrics, horizon),
             )
             for m in metrics:
                 col = f"{m}_mean"
@@ -423,17 +429,17 @@ def compare(old: Results, new: Results) -> Diff:
                 nv = float(n[col]) if n is not None and col in n else math.nan
                 fc.values[m] = (ov, nv)
             dd.forecasters.append(fc)
-        _compare_segments(dd, old, new, rank_by, horizon)
+        _compare_segments(dd, old, new, rank_by, horizon, exact=same_platform)
         datasets.append(dd)
-    return Diff(old, new, rank_by, config_changes, version_changes, datasets,
-                platform_changes(old.manifest, new.manifest))
+    return Diff(old, new, rank_by, config_changes, version_changes, datasets, platforms)
 
 
 def _compare_segments(dd: DatasetDiff, old: Results, new: Results, rank_by: str,
-                      horizon: int) -> None:
+                      horizon: int, exact: bool) -> None:
     """Fill ``dd.segments``: rank, series count, rank metric (with its numerical tolerance, as
-    for the leaderboard) and win of every forecaster in every segment, old and new (rows in the
-    new file's order, then those only in the old)."""
+    for the leaderboard; none when ``exact``, as on one platform) and win of every
+    forecaster in every segment, old and new (rows in the new file's order, then those only in
+    the old)."""
     if dd.status != "both" or (old.segments is None and new.segments is None):
         return
     if old.segments is None or new.segments is None:
@@ -459,7 +465,7 @@ def _compare_segments(dd: DatasetDiff, old: Results, new: Results, rank_by: str,
                    float(n[col]) if n is not None and col in n else math.nan),
             beats=(None if o is None else bool(o["beats_reference"]),
                    None if n is None else bool(n["beats_reference"])),
-            tolerance=_tolerances(o, [rank_by], horizon).get(rank_by, 0.0),
+            tolerance=0.0 if exact else _tolerances(o, [rank_by], horizon).get(rank_by, 0.0),
         ))
     # A segment whose rows all kept their rank metric within tolerance has only noise in it;
     # its rank swaps follow from that noise (another CPU or BLAS kernel), not from a change.

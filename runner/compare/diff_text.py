@@ -119,14 +119,18 @@ def _header(d: Diff, markdown: bool) -> list[str]:
         out.append("config: unchanged")
     out.append("versions: " + ("changed (" + ", ".join(d.version_changes) + ")"
                                if d.version_changes else "unchanged"))
-    if d.platform_changes:
-        out.append("platform: changed (" + "; ".join(d.platform_changes) + "): scores may "
-                   "differ within the numerical tolerance")
-    elif "platform" in nm:
-        out.append(f"platform: unchanged ({nm['platform'].get('machine', '?')}, BLAS "
-                   f"{platform_text(nm['platform'].get('blas') or [])})")
+    missing = [side for side, m in (("old", om), ("new", nm)) if "platform" not in m]
+    if missing:
+        where = "" if len(missing) == 2 else f" in the {missing[0]} results"
+        out.append(f"platform: not recorded{where}: scores are compared within the numerical "
+                   "tolerance")
+    elif d.platform_changes:
+        out.append("platform: changed (" + "; ".join(d.platform_changes) + "): scores are "
+                   "compared within the numerical tolerance")
     else:
-        out.append("platform: not recorded")
+        out.append(f"platform: unchanged ({nm['platform'].get('machine', '?')}, BLAS "
+                   f"{platform_text(nm['platform'].get('blas') or [])}): scores are compared "
+                   "exactly")
     if om["rank_by"] != nm["rank_by"]:
         out.append(f"rank metric: {nm['rank_by']} (was {om['rank_by']}; ranks are not "
                    "comparable)")
