@@ -258,6 +258,9 @@ class ExecutionConfig(_Strict):
     cache: str | Literal[False] = "results/.cache"
     fit_timeout: float = Field(default=120.0, gt=0, allow_inf_nan=False)
     on_error: Literal["record", "stop"] = "record"
+    #: Series forecast, scored and written at a time: the run's memory grows with this, not
+    #: with the number of series. Results do not depend on it.
+    chunk: int = Field(default=10_000, ge=1)
 
     @field_validator("jobs")
     @classmethod

@@ -56,37 +56,46 @@ def add_derived(
 ) -> None:
     """Add the result of every derived candidate of ``plan`` to ``per_dataset`` (forecaster
     index -> result, one dict per dataset), computed from the results already there."""
+    for d, dp in enumerate(plan.datasets):
+        add_derived_dataset(plan, dp, summaries[d], per_dataset[d])
+
+
+def add_derived_dataset(
+    plan: Plan, dp: DatasetPlan, summary: SliceSummary, results: dict[int, ForecasterResult]
+) -> None:
+    """:func:`add_derived` for one dataset, or for a chunk of its series: ``dp`` and
+    ``summary`` may hold any subset of the dataset's tasks that keeps every task of a series
+    (a selection looks at its series' earlier folds)."""
     from runner.scoring.evaluate import ForecasterResult  # here: evaluate imports this module
 
     horizon, n_levels = plan.config.horizon, len(plan.config.intervals)
-    for d, dp in enumerate(plan.datasets):
-        derived = [f for f in dp.forecasters if is_derived(plan.forecasters[f])]
-        if not derived:
-            continue
-        known = {plan.forecasters[f].name: r for f, r in per_dataset[d].items()}
-        derived.sort(key=lambda f: COMPUTE_ORDER.index(plan.forecasters[f].kind))
-        for f in derived:
-            spec = plan.forecasters[f]
-            names = components(spec)
-            if spec.kind == "best_so_far":
-                names.append(spec.params.get("fallback") or dp.reference)
-            parts = {
-                name: known[name] if name in known
-                else _Missing(name, dp.panel.name, dp.n_tasks, horizon)
-                for name in names
-            }
-            if spec.kind == "combination":
-                point, reason, message, info = _combine(spec, parts)
-            else:
-                point, reason, message, info = _select(
-                    spec, parts, dp, summaries[d], plan.config.rank_by, horizon
-                )
-            nan_bounds = np.full((n_levels, dp.n_tasks, horizon), np.nan)
-            result = ForecasterResult(
-                spec, point, nan_bounds, nan_bounds.copy(), reason, message, info=info
+    derived = [f for f in dp.forecasters if is_derived(plan.forecasters[f])]
+    if not derived:
+        return
+    known = {plan.forecasters[f].name: r for f, r in results.items()}
+    derived.sort(key=lambda f: COMPUTE_ORDER.index(plan.forecasters[f].kind))
+    for f in derived:
+        spec = plan.forecasters[f]
+        names = components(spec)
+        if spec.kind == "best_so_far":
+            names.append(spec.params.get("fallback") or dp.reference)
+        parts = {
+            name: known[name] if name in known
+            else _Missing(name, dp.panel.name, dp.n_tasks, horizon)
+            for name in names
+        }
+        if spec.kind == "combination":
+            point, reason, message, info = _combine(spec, parts)
+        else:
+            point, reason, message, info = _select(
+                spec, parts, dp, summary, plan.config.rank_by, horizon
             )
-            per_dataset[d][f] = result
-            known[spec.name] = result
+        nan_bounds = np.full((n_levels, dp.n_tasks, horizon), np.nan)
+        result = ForecasterResult(
+            spec, point, nan_bounds, nan_bounds.copy(), reason, message, info=info
+        )
+        results[f] = result
+        known[spec.name] = result
 
 
 def _task_failed(r) -> np.ndarray:

@@ -100,8 +100,11 @@ def _versus_reference(
     if not both.any():
         return {"win_share": np.nan, "dm_better": np.nan, "dm_worse": np.nan,
                 "wilcoxon_p": np.nan, "significant": False}
+    # each task's mean loss stands for its row of losses: the tests use only that mean
+    # (and whether every step's loss is finite, which a NaN mean records)
+    assert r.loss_mean is not None and ref.loss_mean is not None
     c = compare_with_reference(
-        score[both], ref_score[both], r.loss[both], ref.loss[both],
+        score[both], ref_score[both], r.loss_mean[both][:, None], ref.loss_mean[both][:, None],
         dr.plan.series[both], dr.plan.fold[both], horizon, step=step,
     )
     return {"win_share": c.win_share, "dm_better": c.dm_better, "dm_worse": c.dm_worse,

@@ -249,11 +249,28 @@ def info(column: str) -> MetricInfo:
 
 @dataclass
 class Scored:
-    """Scores of one metric column: per task (n,), per step (H,), and tasks that were NaN."""
+    """Scores of one metric column: per task (n,), per step (H,), and tasks that were NaN.
+
+    ``step_sum`` / ``step_count`` (H,) are the sum and the number of the pointwise losses
+    behind ``per_step`` (NaN left out), so that scores computed chunk by chunk add up to the
+    per-step scores of the whole run (:func:`per_step_from`).
+    """
 
     per_task: np.ndarray
     per_step: np.ndarray
     undefined: np.ndarray
+    step_sum: np.ndarray | None = None
+    step_count: np.ndarray | None = None
+
+
+def per_step_from(column: str, step_sum: np.ndarray, step_count: np.ndarray) -> np.ndarray:
+    """Per-step scores from summed pointwise losses: the mean (its root for a root metric);
+    NaN at a step without any loss. The same arithmetic as ``numpy.nanmean`` over the losses."""
+    with np.errstate(invalid="ignore", divide="ignore"):
+        mean = step_sum / step_count
+    if metric_of(column).reduction == "root_mean":
+        return np.sqrt(mean)
+    return mean
 
 
 def pointwise_loss(
@@ -326,8 +343,9 @@ def score_tasks(
         if m.task_score is not None:
             per_task = m.task_score(actual, forecast)
             per_task[failed | ~scored] = np.nan
-            out[col] = Scored(per_task, np.full(actual.shape[1], np.nan),
-                              ok & scored & np.isnan(per_task))
+            h = actual.shape[1]
+            out[col] = Scored(per_task, np.full(h, np.nan), ok & scored & np.isnan(per_task),
+                              np.zeros(h), np.zeros(h, dtype=np.intp))
             continue
         x = LossInput(actual, forecast, mase_scale, rmsse_scale)
         if m.per_level:
@@ -341,8 +359,14 @@ def score_tasks(
         if m.per_level:
             # a forecaster without intervals has NaN bounds everywhere: not "undefined"
             undefined &= ~np.isnan(x.lower).all(axis=1)
-        per_step = _reduce(m, loss[ok], axis=0) if ok.any() else np.full(loss.shape[1], np.nan)
-        out[col] = Scored(per_task, per_step, undefined)
+        kept = loss[ok]
+        missing = np.isnan(kept)
+        # the sum and count that numpy.nanmean divides, kept so that chunks can add them up
+        step_sum = np.where(missing, 0.0, kept).sum(axis=0)
+        step_count = (~missing).sum(axis=0, dtype=np.intp)
+        per_step = (per_step_from(col, step_sum, step_count) if ok.any()
+                    else np.full(loss.shape[1], np.nan))
+        out[col] = Scored(per_task, per_step, undefined, step_sum, step_count)
     return out
 
 

@@ -21,6 +21,7 @@ from __future__ import annotations
 import argparse
 import os
 import resource
+import shutil
 import subprocess
 import sys
 import tempfile
@@ -116,9 +117,11 @@ def main() -> int:
               f"{data.stat().st_size / 2**20:.0f} MiB) written in {time.perf_counter() - t0:.1f} s")
         cfg = folder / "bench.yaml"
         cfg.write_text(config_text(data, args.forecasts, args.chunk))
-        out = folder / "out"
         walls, cpus = [], []
         for r in range(args.rounds):
+            # a new results folder each round: nothing of an earlier round (its plots) is reused
+            out = folder / f"out{r}"
+            shutil.rmtree(folder / f"out{r - 1}", ignore_errors=True)
             load = os.getloadavg()[0]
             cpu0 = children_cpu()
             t0 = time.perf_counter()
