@@ -7,6 +7,7 @@
 
 from __future__ import annotations
 
+import sys
 from dataclasses import dataclass
 from functools import cached_property
 from pathlib import Path
@@ -154,6 +155,7 @@ def run(
     _check_paths(plan, target, use_cache)
     if target is None:
         ev = evaluate(plan, use_cache=use_cache, jobs=jobs, quiet=quiet)
+        _show_notes(ev, quiet)
         board = build_leaderboard(ev)
         return RunResult(board, target, build_manifest(ev), ev)
     from functools import partial
@@ -164,8 +166,21 @@ def run(
     with Staging(target) as stage:
         ev = evaluate(plan, use_cache=use_cache, jobs=jobs, quiet=quiet,
                       sink=stage.forecast_sink(plan))
+        _show_notes(ev, quiet)
         board = build_leaderboard(ev)
         # plots whose data did not change are copied from the results being replaced
         finish = partial(build_report, previous=target) if report else None
         man = stage.commit(ev, board, finish)
     return RunResult(board, target, man, ev)
+
+
+def _show_notes(ev: Evaluation, quiet: bool) -> None:
+    """The notes and warnings of the scoring (missing actuals, undefined scores) on stderr,
+    as the run's other notes are shown; nothing when ``quiet``."""
+    if quiet:
+        return
+    for dr in ev.datasets:
+        for note in dr.notes:
+            print(f"castgrid: note: {note}", file=sys.stderr)
+        for w in dr.warnings:
+            print(f"castgrid: warning: {w}", file=sys.stderr)

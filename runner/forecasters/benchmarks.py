@@ -55,7 +55,14 @@ import numpy as np
 from runner.forecasters.contract import Forecast
 from runner.forecasters.gaps import SliceFill
 from runner.forecasters.intervals import z_values
-from runner.forecasters.slices import CHUNK_ELEMENTS, SliceSummary, chunks, padded, summarise
+from runner.forecasters.slices import (
+    CHUNK_ELEMENTS,
+    SliceSummary,
+    chunks,
+    padded,
+    row_sums,
+    summarise,
+)
 
 
 @dataclass
@@ -301,7 +308,7 @@ def moving_error_sigma(
                 centre = windows.mean(axis=2) if stat == "mean" else np.median(windows, axis=2)
             err = mat[:, k:] - centre
             finite = np.isfinite(err)
-            sse[part] = (np.where(finite, err, 0.0) ** 2).sum(axis=1)
+            sse[part] = row_sums(np.where(finite, err, 0.0) ** 2)  # width-independent
             count[part] = finite.sum(axis=1)
     with np.errstate(invalid="ignore", divide="ignore"):
         sigma = np.sqrt(sse / count)

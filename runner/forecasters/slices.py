@@ -56,6 +56,23 @@ def padded(
     return out
 
 
+def row_sums(mat: np.ndarray) -> np.ndarray:
+    """The sum of each row of a padded matrix, NaN (padding) counted as 0, added from left to
+    right.
+
+    In that order the padding in front of a slice adds exact zeros before its first value, so
+    a slice's sum is the same bits however wide its matrix is (the longest slice among the
+    tasks computed with it, which depends on how the tasks are chunked). ``numpy.sum`` adds in
+    pairs, and where the pairs fall depends on the width.
+
+    >>> row_sums(np.array([[np.nan, 1.0, 2.0], [3.0, 4.0, 5.0]]))
+    array([ 3., 12.])
+    """
+    if mat.shape[1] == 0:
+        return np.zeros(len(mat))
+    return np.add.accumulate(np.where(np.isnan(mat), 0.0, mat), axis=1)[:, -1]
+
+
 @dataclass
 class SliceSummary:
     """Per-slice statistics shared by the baselines, their intervals and the scaled metrics.
@@ -94,16 +111,16 @@ def summarise(
         mat = padded(fill, starts[part], ends[part])
         length = fields["length"][part]
         with np.errstate(invalid="ignore", divide="ignore"):
-            mean = np.nansum(mat, axis=1) / length
+            mean = row_sums(mat) / length
             d = np.diff(mat, axis=1)
-            c = np.nansum(d, axis=1) / (length - 1)
+            c = row_sums(d) / (length - 1)
             ds = mat[:, m:] - mat[:, :-m] if mat.shape[1] > m else np.full((len(mat), 0), np.nan)
             fields["first"][part] = mat[np.arange(len(mat)), mat.shape[1] - length.astype(int)]
             fields["last"][part] = mat[:, -1]
             fields["mean"][part] = mean
-            fields["mean_sq"][part] = np.nansum((mat - mean[:, None]) ** 2, axis=1)
-            fields["diff_sq"][part] = np.nansum(d**2, axis=1)
-            fields["drift_sq"][part] = np.nansum((d - c[:, None]) ** 2, axis=1)
-            fields["seasonal_abs"][part] = np.nansum(np.abs(ds), axis=1)
-            fields["seasonal_sq"][part] = np.nansum(ds**2, axis=1)
+            fields["mean_sq"][part] = row_sums((mat - mean[:, None]) ** 2)
+            fields["diff_sq"][part] = row_sums(d**2)
+            fields["drift_sq"][part] = row_sums((d - c[:, None]) ** 2)
+            fields["seasonal_abs"][part] = row_sums(np.abs(ds))
+            fields["seasonal_sq"][part] = row_sums(ds**2)
     return SliceSummary(**fields)

@@ -18,6 +18,7 @@ import shutil
 import socket
 import tempfile
 from collections.abc import Callable, Iterator
+from dataclasses import replace
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
@@ -32,8 +33,9 @@ from runner.forecasters.registry import identity
 from runner.output.reader import interval_columns
 from runner.output.tables import to_csv_text, to_markdown
 from runner.scoring import metrics as M
+from runner.scoring.chunks import chunk_plan
 from runner.scoring.derived import selection_frame
-from runner.scoring.evaluate import Chunk, Evaluation
+from runner.scoring.results import Chunk, Evaluation, ForecasterResult
 from runner.windows.plan import DatasetPlan, Plan
 
 if TYPE_CHECKING:
@@ -322,26 +324,84 @@ class _TableFile:
             self.writer = None
 
 
+#: Series per row group of forecasts.parquet (one row group per block of series and
+#: forecaster). A property of the file, not of the run's chunks: the file is the same bytes
+#: whatever ``execution.chunk`` is, and a reader that wants a few series reads a few groups.
+GROUP_SERIES = 10_000
+
+
 class ForecastSink:
-    """Writes forecasts.parquet chunk by chunk as :func:`runner.scoring.evaluate.evaluate`
-    hands the chunks over (a row group per chunk and forecaster), so that no more than one
-    chunk's forecasts are ever in memory."""
+    """Writes forecasts.parquet as :func:`runner.scoring.evaluate.evaluate` hands the chunks
+    over: the rows of each block of :data:`GROUP_SERIES` series (by series number) are written
+    as soon as the block is complete, so that no more than a chunk and a block of forecasts
+    are ever in memory."""
 
     def __init__(self, plan: Plan, path: Path) -> None:
         self.plan = plan
         self.file = _TableFile(path)
-        self.schema: Any = None
+        self.pending: list[Chunk] = []  # the parts of the block being gathered
+        self.block: tuple[int, int] | None = None  # its (dataset, block number)
 
     def __call__(self, chunk: Chunk) -> None:
-        for table in _forecast_blocks(self.plan, chunk):
-            self.schema = table.schema
-            self.file.write(table)
+        n = chunk.plan.n_tasks
+        if n == 0:
+            return
+        blocks = chunk.plan.series // GROUP_SERIES
+        bounds = [0, *(np.flatnonzero(np.diff(blocks)) + 1).tolist(), n]
+        for lo, hi in zip(bounds[:-1], bounds[1:]):
+            key = (chunk.dataset, int(blocks[lo]))
+            if key != self.block:
+                self._flush()
+                self.block = key
+            self.pending.append(_chunk_part(chunk, lo, hi))
 
     def close(self) -> None:
+        """Write the last block and finish the file (its columns even without a row)."""
+        self._flush()
         empty = None
         if self.file.writer is None:  # no row at all: the columns still say what there is
             empty = _empty_forecasts(self.plan)
         self.file.close(empty)
+
+    def _flush(self) -> None:
+        if self.pending:
+            for table in _forecast_blocks(self.plan, _joined(self.pending)):
+                self.file.write(table)
+        self.pending = []
+
+
+def _chunk_part(chunk: Chunk, lo: int, hi: int) -> Chunk:
+    """Tasks ``lo:hi`` of a chunk, forecasts only (views of its arrays)."""
+    if lo == 0 and hi == chunk.plan.n_tasks:
+        return chunk
+    tasks = slice(lo, hi)
+    results = [ForecasterResult(r.spec, r.point[tasks], r.lower[:, tasks], r.upper[:, tasks],
+                                [], [])  # type: ignore[index]
+               for r in chunk.results]
+    return Chunk(chunk.dataset, chunk_plan(chunk.plan, tasks),
+                 slice(chunk.tasks.start + lo, chunk.tasks.start + hi), chunk.actual[tasks],
+                 results, chunk.summary)
+
+
+def _joined(parts: list[Chunk]) -> Chunk:
+    """Consecutive parts of one dataset's tasks as one chunk (forecasts only)."""
+    if len(parts) == 1:
+        return parts[0]
+    first = parts[0]
+
+    def cat(get: Callable[[Any], np.ndarray], axis: int = 0) -> np.ndarray:
+        return np.concatenate([get(p) for p in parts], axis=axis)
+
+    plan = replace(first.plan, **{k: cat(lambda p, k=k: getattr(p.plan, k)) for k in
+                                  ("series", "fold", "origin", "starts", "ends", "test_starts")})
+    results = [
+        ForecasterResult(r.spec, cat(lambda p, i=i: p.results[i].point),
+                         cat(lambda p, i=i: p.results[i].lower, 1),
+                         cat(lambda p, i=i: p.results[i].upper, 1), [], [])
+        for i, r in enumerate(first.results)
+    ]
+    tasks = slice(first.tasks.start, parts[-1].tasks.stop)
+    return Chunk(first.dataset, plan, tasks, cat(lambda p: p.actual), results, first.summary)
 
 
 def _empty_forecasts(plan: Plan) -> Any:

@@ -1,30 +1,23 @@
 """Forecasting every task of a plan and scoring it: the computational core of a run.
 
+:func:`evaluate` goes in two steps. First the forecasts that need the engine (cache, workers,
+fault isolation) are made for the whole plan: per-series models and models trained across
+series, and forecasts read from files (a fit costs far more than its forecast takes to keep).
+Then each dataset is forecast and scored a chunk of ``execution.chunk`` series at a time
+(:mod:`runner.scoring.chunks`): training-slice statistics, benchmarks, derived candidates,
+scores. A chunk's forecasts are handed to a sink (the results writer streams them to
+forecasts.parquet) and dropped, so the memory a run needs grows with the chunk, not with the
+number of series; what is kept is what the leaderboard, the horizon table and the
+significance tests are built from, and it is the same whatever the chunk size.
+
 A dataset read with ``missing: interpolate`` keeps its missing values as NaN. Every forecaster
 sees its training slice filled from that slice alone (:mod:`runner.forecasters.gaps`), and a
 missing actual in a test block is not scored: it is left out of every metric's mean, and the
-run reports how many there were (a note on stderr and ``unscored_actuals`` in the manifest).
-
-Memory bounded by the chunk, not by the number of series
---------------------------------------------------------
-The per-series models and the models trained across series run first, through the engine, for
-the whole plan (a fit costs far more than its forecast takes to keep). Everything else goes a
-chunk of ``execution.chunk`` series at a time (every task of a series in the same chunk):
-training-slice statistics, benchmarks, derived candidates, scores. A chunk's forecasts are
-handed to a sink (the results writer streams them to forecasts.parquet) and dropped; what is
-kept for the whole run is small: per task, each metric's score, the rank metric's mean loss
-(the significance tests' input) and whether it failed; per step, the sums and counts of the
-losses (:attr:`runner.scoring.metrics.Scored.step_sum`). Per-task numbers are computed row by
-row, so they, and the leaderboard built from them, are the same whatever the chunk size.
+run reports how many there were (a note in :attr:`DatasetResult.notes`, which the command line
+prints, and ``unscored_actuals`` in the manifest).
 """
 
 from __future__ import annotations
-
-import sys
-from collections.abc import Callable, Iterator, Sequence
-from dataclasses import dataclass, field, replace
-from functools import cached_property
-from typing import Any
 
 import numpy as np
 
@@ -37,102 +30,185 @@ from runner.forecasters.recorded import recorded_forecasts
 from runner.forecasters.registry import build, is_vectorised
 from runner.forecasters.slices import SliceSummary, summarise
 from runner.scoring import metrics as M
+from runner.scoring.chunks import Gathered, Tally, chunk_plan, cut, series_chunks
 from runner.scoring.derived import add_derived_dataset
+from runner.scoring.results import (
+    Chunk,
+    DatasetResult,
+    Evaluation,
+    ForecasterResult,
+    Sink,
+    Sparse,
+)
+from runner.scoring.significance import block_differences
 from runner.windows.plan import DatasetPlan, Plan
 
+__all__ = ["Chunk", "DatasetResult", "Evaluation", "ForecasterResult", "Sink", "Sparse",
+           "evaluate", "series_chunks"]
 
-class Sparse(Sequence):
-    """A per-task list that is mostly one value (``None`` reasons, empty messages), holding
-    only the other entries: the failures of a million tasks cost what the failures cost."""
-
-    def __init__(self, n: int, entries: dict[int, Any], default: Any) -> None:
-        self.n, self.entries, self.default = n, entries, default
-
-    def __len__(self) -> int:
-        return self.n
-
-    def __getitem__(self, i: Any) -> Any:
-        if isinstance(i, slice):
-            return [self[j] for j in range(*i.indices(self.n))]
-        if i < 0:
-            i += self.n
-        if not 0 <= i < self.n:
-            raise IndexError(i)
-        return self.entries.get(i, self.default)
+#: Forecaster index -> its result, for one dataset.
+Results = dict[int, ForecasterResult]
 
 
-@dataclass
-class ForecasterResult:
-    """Forecasts and scores of one forecaster on every task of one dataset (task order).
+def evaluate(
+    plan: Plan, *, use_cache: bool = True, jobs: int | None = None, quiet: bool = False,
+    sink: Sink | None = None,
+) -> Evaluation:
+    """Forecast every (dataset, series, forecaster, fold) task of ``plan`` and score it.
 
-    After a run of more than one chunk, ``point``, ``lower`` and ``upper`` are None (the
-    forecasts went to the sink chunk by chunk) and ``reason`` / ``message`` are :class:`Sparse`.
+    ``sink`` receives each chunk of series, forecast and scored, before its forecasts are
+    dropped (see the module doc). A dataset of one chunk keeps its forecasts in the result,
+    as a run kept in memory wants them. ``quiet`` silences the engine's progress line; notes
+    and warnings are returned in the :class:`DatasetResult`, never printed.
     """
-
-    spec: ForecasterSpec
-    point: np.ndarray | None  # (n, H), NaN rows for failed tasks
-    lower: np.ndarray | None  # (levels, n, H)
-    upper: np.ndarray | None
-    reason: Sequence[str | None]  # None where the task succeeded
-    message: Sequence[str]
-    scores: dict[str, M.Scored] = field(default_factory=dict)
-    #: per task, the mean over the steps of the rank metric's pointwise loss, NaN when any
-    #: step's loss is not finite: all the significance tests need of the losses
-    loss_mean: np.ndarray | None = None
-    info: list[dict] = field(default_factory=list)
-
-    @cached_property
-    def failed(self) -> np.ndarray:
-        """Boolean mask of failed tasks."""
-        if isinstance(self.reason, Sparse):
-            out = np.zeros(len(self.reason), dtype=bool)
-            out[[i for i, r in self.reason.entries.items() if r is not None]] = True
-            return out
-        return np.array([r is not None for r in self.reason], dtype=bool)
+    whole, counts, stopped = _engine_forecasts(plan, use_cache, jobs, quiet)
+    datasets = [_evaluate_dataset(plan, d, whole[d], sink) for d in range(len(plan.datasets))]
+    return Evaluation(plan, datasets, counts, stopped)
 
 
-@dataclass
-class DatasetResult:
-    """Everything computed for one dataset (``actual`` and ``summary`` only when it was one
-    chunk)."""
-
-    plan: DatasetPlan
-    actual: np.ndarray | None  # (n, H)
-    results: list[ForecasterResult]
-    summary: SliceSummary | None
-    warnings: list[str] = field(default_factory=list)
-    notes: list[str] = field(default_factory=list)
-    #: missing actuals in the test blocks (not scored); each (series, time) counted once
-    unscored_actuals: int = 0
+# ------------------------------------------------------------ step 1: the engine's forecasts
 
 
-@dataclass
-class Chunk:
-    """One chunk of a dataset's series, forecast and scored: what a sink receives.
+def _engine_forecasts(
+    plan: Plan, use_cache: bool, jobs: int | None, quiet: bool
+) -> tuple[list[Results], EngineCounts, bool]:
+    """Every forecast that is made for the whole plan at once: recorded candidates,
+    per-series models and models trained across series (through the engine)."""
+    per_dataset: list[Results] = [{} for _ in plan.datasets]
+    for rec in recorded_forecasts(plan):  # forecasts read from files: no fit, no task
+        per_dataset[rec.dataset][rec.forecaster] = ForecasterResult(
+            plan.forecasters[rec.forecaster], rec.point, rec.lower, rec.upper, rec.reason,
+            rec.message)
+    model_tasks, shared = build_model_tasks(plan)
+    counts, stopped = EngineCounts(), False
+    if model_tasks:
+        outcomes, counts = forecast_models(
+            model_tasks, shared, plan.config.execution, use_cache=use_cache, jobs=jobs,
+            quiet=quiet, cache_path=plan.config.execution.cache_folder(),
+        )
+        by_index = {o.index: o for o in outcomes}
+        stopped = len(by_index) < len(model_tasks) or any(
+            o.reason == "not-run" for o in outcomes
+        )
+        grouped: dict[tuple[int, int], list[ModelTask]] = {}
+        for task in model_tasks:
+            grouped.setdefault((task.dataset, task.forecaster), []).append(task)
+        for (d, f), tasks in grouped.items():
+            per_dataset[d][f] = _model_result(plan, plan.forecasters[f], tasks, by_index)
+    panel_tasks = build_panel_tasks(plan, first_index=len(model_tasks))
+    if panel_tasks:
+        counts, stopped = _panel_forecasts(plan, panel_tasks, shared, per_dataset, counts,
+                                           stopped, use_cache, jobs, quiet)
+    return per_dataset, counts, stopped
 
-    ``plan`` holds the chunk's tasks only; ``tasks`` is their place among the dataset's tasks.
-    """
 
-    dataset: int
-    plan: DatasetPlan
-    tasks: slice
-    actual: np.ndarray  # (n, H)
-    results: list[ForecasterResult]  # in the order of the dataset's forecasters
-    summary: SliceSummary
+def _model_result(
+    plan: Plan, spec: ForecasterSpec, tasks: list[ModelTask], by_index: dict[int, TaskOutcome],
+) -> ForecasterResult:
+    """One per-series model's result on one dataset from the engine's outcomes (a task
+    without an outcome did not run: the run stopped at an earlier failure)."""
+    n, horizon, n_levels = len(tasks), plan.config.horizon, len(plan.config.intervals)
+    point = np.full((n, horizon), np.nan)
+    lower = np.full((n_levels, n, horizon), np.nan)
+    upper = np.full((n_levels, n, horizon), np.nan)
+    reason: list[str | None] = []
+    message: list[str] = []
+    info: list[dict] = []
+    for t, task in enumerate(tasks):
+        o = by_index.get(task.index)
+        if o is None:
+            reason.append("not-run")
+            message.append("the run stopped at an earlier failure (on_error: stop)")
+            info.append({})
+            continue
+        reason.append(o.reason)
+        message.append(o.message)
+        info.append(o.info)
+        if o.ok:
+            point[t] = o.point
+            if n_levels:
+                lower[:, t] = o.lower
+                upper[:, t] = o.upper
+    return ForecasterResult(spec, point, lower, upper, reason, message, info=info)
 
 
-#: What :func:`evaluate` hands each chunk to (the results writer streams its forecasts).
-Sink = Callable[[Chunk], None]
+def _panel_forecasts(
+    plan: Plan, panel_tasks: list, shared: object, per_dataset: list[Results],
+    counts: EngineCounts, stopped: bool, use_cache: bool, jobs: int | None, quiet: bool,
+) -> tuple[EngineCounts, bool]:
+    """Models trained across series: one task per (dataset, forecaster, origin), through the
+    same engine; their results go into ``per_dataset``."""
+    panel_out: list[TaskOutcome] = []
+    if stopped:  # on_error: stop, and a per-series task failed: no panel task runs
+        counts.not_run += sum(panel_rows(t, shared) for t in panel_tasks)
+    else:
+        execution = plan.config.execution
+        panel_out, panel_counts = forecast_models(
+            panel_tasks, shared, execution, use_cache=use_cache, jobs=jobs, quiet=quiet,
+            cache_path=execution.cache_folder(), label="panel fits",
+        )
+        counts = counts + panel_counts
+        stopped = any(o.reason == "not-run" for o in panel_out)
+    for (d, f), pr in panel_results(plan, panel_tasks, panel_out, shared).items():
+        per_dataset[d][f] = ForecasterResult(
+            plan.forecasters[f], pr.point, pr.lower, pr.upper, pr.reason, pr.message,
+            info=pr.info,
+        )
+    return counts, stopped
 
 
-@dataclass
-class Evaluation:
-    """The outcome of forecasting and scoring a whole plan."""
+# ------------------------------------------------------ step 2: chunk by chunk of series
 
-    plan: Plan
-    datasets: list[DatasetResult]
-    counts: EngineCounts
-    stopped: bool = False
+
+def _evaluate_dataset(plan: Plan, d: int, whole: Results, sink: Sink | None) -> DatasetResult:
+    """Forecast and score dataset ``d`` chunk by chunk, handing each chunk to ``sink``;
+    ``whole`` holds the engine's results for the whole dataset."""
+    dp = plan.datasets[d]
+    cols = M.columns(plan.config.metrics, tuple(plan.config.intervals))
+    spans = list(series_chunks(dp, plan.config.execution.chunk))
+    gathered = {f: Gathered(plan.forecasters[f]) for f in dp.forecasters}
+    tally = Tally(cols)
+    chunk: Chunk | None = None
+    for tasks in spans:
+        sub, summary, results = _forecast_chunk(plan, dp, tasks, whole)
+        carry = {f: gathered[f].carry() for f in dp.forecasters}
+        actual = _score_chunk(plan, sub, summary, results, carry)
+        chunk = Chunk(d, sub, tasks, actual, results, summary)
+        if sink is not None:
+            sink(chunk)
+        tally.add(chunk)
+        for f, r in zip(dp.forecasters, results):
+            gathered[f].add(r)
+    assert chunk is not None  # series_chunks yields at least one range
+    if len(spans) == 1:  # one chunk: everything as computed, forecasts included
+        result = DatasetResult(dp, chunk.actual, chunk.results, chunk.summary)
+    else:
+        ordered = [gathered[f].result() for f in dp.forecasters]
+        result = DatasetResult(dp, None, ordered, None)
+    result.unscored_actuals = tally.unscored
+    result.notes = tally.notes(dp)
+    result.warnings = tally.warnings(dp, [plan.forecasters[f].name for f in dp.forecasters])
+    return result
+
+
+def _forecast_chunk(
+    plan: Plan, dp: DatasetPlan, tasks: slice, whole: Results
+) -> tuple[DatasetPlan, SliceSummary, list[ForecasterResult]]:
+    """The forecasts of the tasks ``tasks`` of ``dp``: benchmarks and derived candidates
+    computed here, the engine's results cut from ``whole``; in the dataset's forecaster
+    order, with the chunk's plan and training-slice statistics."""
+    horizon, levels = plan.config.horizon, tuple(plan.config.intervals)
+    sub = chunk_plan(dp, tasks)
+    summary = summarise(sub.panel.values, sub.starts, sub.ends, sub.panel.season)
+    results: Results = {}
+    for f in dp.forecasters:
+        spec = plan.forecasters[f]
+        if is_vectorised(spec):
+            results[f] = _baseline_result(spec, sub, summary, horizon, levels)
+        elif f in whole:
+            results[f] = whole[f] if sub is dp else cut(whole[f], tasks)
+    add_derived_dataset(plan, sub, summary, results)  # combinations, selections
+    return sub, summary, [results[f] for f in dp.forecasters]
 
 
 def _baseline_result(
@@ -147,317 +223,40 @@ def _baseline_result(
         season=dp.panel.season, levels=levels, summary=summary,
     )
     b.point, b.lower, b.upper = b.point[:, gap:], b.lower[:, :, gap:], b.upper[:, :, gap:]
+    if b.ok.all():  # the usual case: no per-task list to build
+        return ForecasterResult(spec, b.point, b.lower, b.upper, Sparse(len(b.ok), {}, None),
+                                Sparse(len(b.ok), {}, ""))
     reason = [None if ok else "too-short" for ok in b.ok]
     message = ["" if ok else b.message for ok in b.ok]
     return ForecasterResult(spec, b.point, b.lower, b.upper, reason, message)
 
 
-def _few(names: list[str], show: int = 3) -> str:
-    more = f" and {len(names) - show} more" if len(names) > show else ""
-    return ", ".join(names[:show]) + more
-
-
-def _undefined_warnings(
-    dp: DatasetPlan, hits: dict[str, list[tuple[str, np.ndarray, int]]], cols: list[str]
-) -> list[str]:
-    """One warning per kind of undefined score: which metrics, how many scores, where.
-
-    ``hits``: per metric column, (forecaster, series with an undefined score, how many
-    scores) for each forecaster with any, in the dataset's forecaster order. A constant series
-    makes every scaled metric undefined for every forecaster at once; a line per forecaster and
-    metric would bury the other messages. Metrics undefined for the same series and
-    forecasters share a line.
-    """
-    kinds: dict[tuple[tuple[int, ...], tuple[str, ...]], list[tuple[str, int]]] = {}
-    for col in cols:
-        found = hits.get(col, [])
-        if found:
-            series = tuple(np.unique(np.concatenate([s for _, s, _ in found])).tolist())
-            key = (series, tuple(name for name, _, _ in found))
-            kinds.setdefault(key, []).append((col, sum(n for _, _, n in found)))
-    lines = []
-    for (series, forecasters), metrics in kinds.items():
-        names = [dp.panel.keys[i] for i in series]
-        what = _few([col for col, _ in metrics], show=len(metrics))
-        lines.append(
-            f"dataset {dp.panel.name}: {what} undefined (zero or undefined denominator) in "
-            f"{sum(n for _, n in metrics)} score(s): {len(names)} series ({_few(names)}), "
-            f"{len(forecasters)} forecaster(s) ({_few(list(forecasters))}); left out of the means"
-        )
-    return lines
-
-
-def series_chunks(dp: DatasetPlan, size: int) -> Iterator[slice]:
-    """Ranges of the dataset's tasks covering ``size`` series each (the last fewer); every
-    task of a series falls in one range (tasks are ordered by series)."""
-    n = dp.n_tasks
-    if n == 0:
-        yield slice(0, 0)
-        return
-    firsts = np.r_[0, np.flatnonzero(np.diff(dp.series)) + 1]
-    for i in range(0, len(firsts), max(1, size)):
-        hi = int(firsts[i + size]) if i + size < len(firsts) else n
-        yield slice(int(firsts[i]), hi)
-
-
-def _chunk_plan(dp: DatasetPlan, tasks: slice) -> DatasetPlan:
-    if tasks == slice(0, dp.n_tasks):
-        return dp
-    return replace(dp, series=dp.series[tasks], fold=dp.fold[tasks], origin=dp.origin[tasks],
-                   starts=dp.starts[tasks], ends=dp.ends[tasks],
-                   test_starts=dp.test_starts[tasks])
-
-
-def _chunk_result(r: ForecasterResult, tasks: slice) -> ForecasterResult:
-    """The tasks ``tasks`` of a result computed for the whole dataset."""
-    assert r.point is not None and r.lower is not None and r.upper is not None
-    return ForecasterResult(
-        r.spec, r.point[tasks], r.lower[:, tasks], r.upper[:, tasks], list(r.reason[tasks]),
-        list(r.message[tasks]), info=list(r.info[tasks]) if r.info else [],
-    )
-
-
-@dataclass
-class _Kept:
-    """What is kept of one forecaster's chunks for the whole run (see the module doc)."""
-
-    spec: ForecasterSpec
-    n: int = 0
-    per_task: dict[str, list[np.ndarray]] = field(default_factory=dict)
-    undefined: dict[str, list[np.ndarray]] = field(default_factory=dict)
-    step_sum: dict[str, np.ndarray] = field(default_factory=dict)
-    step_count: dict[str, np.ndarray] = field(default_factory=dict)
-    loss_mean: list[np.ndarray] = field(default_factory=list)
-    reason: dict[int, str] = field(default_factory=dict)
-    message: dict[int, str] = field(default_factory=dict)
-    info: list[dict] = field(default_factory=list)
-
-    def add(self, r: ForecasterResult) -> None:
-        for col, sc in r.scores.items():
-            self.per_task.setdefault(col, []).append(sc.per_task)
-            self.undefined.setdefault(col, []).append(sc.undefined)
-            assert sc.step_sum is not None and sc.step_count is not None
-            if col in self.step_sum:
-                self.step_sum[col] = self.step_sum[col] + sc.step_sum
-                self.step_count[col] = self.step_count[col] + sc.step_count
-            else:
-                self.step_sum[col], self.step_count[col] = sc.step_sum, sc.step_count
-        assert r.loss_mean is not None
-        self.loss_mean.append(r.loss_mean)
-        for t in np.flatnonzero(r.failed):
-            self.reason[self.n + int(t)] = r.reason[t]  # type: ignore[assignment]
-            self.message[self.n + int(t)] = r.message[t]
-        self.info.extend(r.info)
-        self.n += len(r.reason)
-
-    def result(self) -> ForecasterResult:
-        scores = {
-            col: M.Scored(
-                np.concatenate(parts), M.per_step_from(col, self.step_sum[col],
-                                                       self.step_count[col]),
-                np.concatenate(self.undefined[col]), self.step_sum[col], self.step_count[col],
-            )
-            for col, parts in self.per_task.items()
-        }
-        return ForecasterResult(
-            self.spec, None, None, None, Sparse(self.n, self.reason, None),
-            Sparse(self.n, self.message, ""), scores, np.concatenate(self.loss_mean),
-            self.info if len(self.info) == self.n else [],
-        )
-
-
-def _model_results(
-    plan: Plan, use_cache: bool, jobs: int | None, quiet: bool
-) -> tuple[list[dict[int, ForecasterResult]], EngineCounts, bool]:
-    """Every forecast that is not computed chunk by chunk: recorded candidates, per-series
-    models and models trained across series (through the engine, for the whole plan)."""
-    cfg = plan.config
-    horizon, levels = cfg.horizon, tuple(cfg.intervals)
-    per_dataset: list[dict[int, ForecasterResult]] = [{} for _ in plan.datasets]
-    for rec in recorded_forecasts(plan):  # forecasts read from files: no fit, no task
-        per_dataset[rec.dataset][rec.forecaster] = ForecasterResult(
-            plan.forecasters[rec.forecaster], rec.point, rec.lower, rec.upper, rec.reason,
-            rec.message)
-    model_tasks, shared = build_model_tasks(plan)
-
-    # Per-series models: through the engine (cache, workers, fault isolation).
-    counts = EngineCounts()
-    stopped = False
-    if model_tasks:
-        outcomes, counts = forecast_models(
-            model_tasks, shared, cfg.execution, use_cache=use_cache, jobs=jobs, quiet=quiet,
-            cache_path=cfg.execution.cache_folder(),
-        )
-        by_index = {o.index: o for o in outcomes}
-        stopped = len(by_index) < len(model_tasks) or any(
-            o.reason == "not-run" for o in outcomes
-        )
-        n_levels = len(levels)
-        grouped: dict[tuple[int, int], list[ModelTask]] = {}
-        for task in model_tasks:
-            grouped.setdefault((task.dataset, task.forecaster), []).append(task)
-        for (d, f), tasks in grouped.items():
-            n = len(tasks)
-            point = np.full((n, horizon), np.nan)
-            lower = np.full((n_levels, n, horizon), np.nan)
-            upper = np.full((n_levels, n, horizon), np.nan)
-            reason: list[str | None] = []
-            message: list[str] = []
-            info: list[dict] = []
-            for t, task in enumerate(tasks):
-                o = by_index.get(task.index)
-                if o is None:
-                    reason.append("not-run")
-                    message.append("the run stopped at an earlier failure (on_error: stop)")
-                    info.append({})
-                    continue
-                reason.append(o.reason)
-                message.append(o.message)
-                info.append(o.info)
-                if o.ok:
-                    point[t] = o.point
-                    if n_levels:
-                        lower[:, t] = o.lower
-                        upper[:, t] = o.upper
-            per_dataset[d][f] = ForecasterResult(
-                plan.forecasters[f], point, lower, upper, reason, message, info=info
-            )
-
-    # Models trained across series: one task per (dataset, forecaster, origin), same engine.
-    panel_tasks = build_panel_tasks(plan, first_index=len(model_tasks))
-    if panel_tasks:
-        panel_out: list[TaskOutcome] = []
-        if stopped:  # on_error: stop, and a per-series task failed: no panel task runs
-            counts.not_run += sum(panel_rows(t, shared) for t in panel_tasks)
-        else:
-            panel_out, panel_counts = forecast_models(
-                panel_tasks, shared, cfg.execution, use_cache=use_cache, jobs=jobs,
-                quiet=quiet, cache_path=cfg.execution.cache_folder(), label="panel fits",
-            )
-            counts = counts + panel_counts
-            stopped = any(o.reason == "not-run" for o in panel_out)
-        for (d, f), pr in panel_results(plan, panel_tasks, panel_out, shared).items():
-            per_dataset[d][f] = ForecasterResult(
-                plan.forecasters[f], pr.point, pr.lower, pr.upper, pr.reason, pr.message,
-                info=pr.info,
-            )
-    return per_dataset, counts, stopped
-
-
 def _score_chunk(
-    plan: Plan, d: int, dp: DatasetPlan, tasks: slice, whole: dict[int, ForecasterResult],
-) -> Chunk:
-    """Forecast (benchmarks, derived candidates) and score the tasks ``tasks`` of dataset
-    ``d``; the other forecasters' results are cut from ``whole``."""
+    plan: Plan, sub: DatasetPlan, summary: SliceSummary, results: list[ForecasterResult],
+    carry: dict[int, dict[str, tuple[np.ndarray, np.ndarray]]],
+) -> np.ndarray:
+    """Score every result of a chunk (in place) and return the chunk's actuals (n, H).
+
+    Scores are computed from the forecasts at every run, so a new metric never refits.
+    Missing actuals stay NaN: the metrics leave them out (never filled from anything).
+    ``carry``: per forecaster index, the per-step sums of the chunks before.
+    """
     cfg = plan.config
-    horizon, levels = cfg.horizon, tuple(cfg.intervals)
-    sub = _chunk_plan(dp, tasks)
-    summary = summarise(sub.panel.values, sub.starts, sub.ends, sub.panel.season)
-    results: dict[int, ForecasterResult] = {}
-    for f in dp.forecasters:
-        spec = plan.forecasters[f]
-        if is_vectorised(spec):
-            results[f] = _baseline_result(spec, sub, summary, horizon, levels)
-        elif f in whole:
-            results[f] = whole[f] if sub is dp else _chunk_result(whole[f], tasks)
-    add_derived_dataset(plan, sub, summary, results)  # combinations, selections
-    # Scores: computed from the forecasts at every run, so a new metric never refits. Missing
-    # actuals stay NaN: the metrics leave them out (never filled from anything).
-    steps = np.arange(horizon)
+    levels = tuple(cfg.intervals)
+    steps = np.arange(cfg.horizon)
     actual = sub.panel.values[sub.test_starts[:, None] + steps[None, :]]
     mase_scale = M.scale_mase(summary.seasonal_abs, summary.length, sub.panel.season)
     rmsse_scale = M.scale_rmsse(summary.diff_sq, summary.length)
     cols = M.columns(cfg.metrics, levels)
-    ordered = [results[f] for f in dp.forecasters]
-    for r in ordered:
+    losses = []
+    for f, r in zip(sub.forecasters, results):
         assert r.point is not None
-        r.scores = M.score_tasks(
-            cols, actual, r.point, r.lower, r.upper, levels, mase_scale, rmsse_scale
-        )
+        r.scores = M.score_tasks(cols, actual, r.point, r.lower, r.upper, levels, mase_scale,
+                                 rmsse_scale, carry=carry[f])
         loss = M.pointwise_loss(cfg.rank_by, actual, r.point, mase_scale, rmsse_scale)
-        if loss is None:
-            r.loss_mean = np.full(sub.n_tasks, np.nan)
-        else:
-            with np.errstate(invalid="ignore"):
-                r.loss_mean = np.where(np.isfinite(loss).all(axis=1), loss.mean(axis=1), np.nan)
-    return Chunk(d, sub, tasks, actual, ordered, summary)
-
-
-def evaluate(
-    plan: Plan, *, use_cache: bool = True, jobs: int | None = None, quiet: bool = False,
-    sink: Sink | None = None,
-) -> Evaluation:
-    """Forecast every (dataset, series, forecaster, fold) task of ``plan`` and score it.
-
-    Chunk by chunk of ``execution.chunk`` series (see the module doc); ``sink`` receives each
-    chunk before its forecasts are dropped. A dataset of one chunk keeps its forecasts in the
-    result, as a plain in-memory run wants them.
-    """
-    cfg = plan.config
-    cols = M.columns(cfg.metrics, tuple(cfg.intervals))
-    whole, counts, stopped = _model_results(plan, use_cache, jobs, quiet)
-    results = []
-    for d, dp in enumerate(plan.datasets):
-        spans = list(series_chunks(dp, cfg.execution.chunk))
-        kept = {f: _Kept(plan.forecasters[f]) for f in dp.forecasters}
-        hits: dict[str, list[tuple[str, np.ndarray, int]]] = {}
-        unscored = hit_series = 0
-        last: Chunk | None = None
-        for tasks in spans:
-            chunk = _score_chunk(plan, d, dp, tasks, whole[d])
-            if sink is not None:
-                sink(chunk)
-            missing = np.isnan(chunk.actual)
-            if missing.any():
-                steps = np.arange(missing.shape[1])
-                cells = (chunk.plan.test_starts[:, None] + steps[None, :])[missing]
-                unscored += len(np.unique(cells))
-                hit_series += len(np.unique(chunk.plan.series[missing.any(axis=1)]))
-            for f, r in zip(dp.forecasters, chunk.results):
-                for col in cols:
-                    u = r.scores[col].undefined
-                    if u.any():
-                        hits.setdefault(col, []).append(
-                            (r.spec.name, np.unique(chunk.plan.series[u]), int(u.sum())))
-                if len(spans) > 1:
-                    kept[f].add(r)
-            last = chunk
-        assert last is not None
-        if len(spans) == 1:  # one chunk: everything as computed, forecasts included
-            ordered, actual = last.results, last.actual
-            summary = last.summary
-        else:
-            ordered = [kept[f].result() for f in dp.forecasters]
-            actual, summary = None, None
-        merged = _merge_hits(hits, [r.spec.name for r in ordered])
-        warnings = _undefined_warnings(dp, merged, cols)
-        result = DatasetResult(dp, actual, ordered, summary, warnings,
-                               unscored_actuals=unscored)
-        if unscored:
-            result.notes.append(
-                f"dataset {dp.panel.name}: {unscored} missing actual(s) in the "
-                f"test blocks of {hit_series} series are not scored (left "
-                "out of every metric's mean)"
-            )
-        if not quiet:
-            for note in result.notes:
-                print(f"castgrid: note: {note}", file=sys.stderr)
-            for w in warnings:
-                print(f"castgrid: warning: {w}", file=sys.stderr)
-        results.append(result)
-    return Evaluation(plan, results, counts, stopped)
-
-
-def _merge_hits(
-    hits: dict[str, list[tuple[str, np.ndarray, int]]], order: list[str]
-) -> dict[str, list[tuple[str, np.ndarray, int]]]:
-    """Chunks' undefined-score hits summed per metric and forecaster, in forecaster order."""
-    out: dict[str, list[tuple[str, np.ndarray, int]]] = {}
-    for col, found in hits.items():
-        per_name: dict[str, tuple[list[np.ndarray], int]] = {}
-        for name, series, n in found:
-            parts, total = per_name.get(name, ([], 0))
-            per_name[name] = (parts + [series], total + n)
-        out[col] = [(name, np.concatenate(per_name[name][0]), per_name[name][1])
-                    for name in order if name in per_name]
-    return out
+        losses.append(np.full(r.point.shape, np.nan) if loss is None else loss)
+    ref = next((i for i, r in enumerate(results) if r.spec.name == sub.reference), None)
+    for r, loss in zip(results, losses):
+        r.versus_reference = (np.full(sub.n_tasks, np.nan) if ref is None
+                              else block_differences(loss, losses[ref]))
+    return actual

@@ -252,8 +252,9 @@ class Scored:
     """Scores of one metric column: per task (n,), per step (H,), and tasks that were NaN.
 
     ``step_sum`` / ``step_count`` (H,) are the sum and the number of the pointwise losses
-    behind ``per_step`` (NaN left out), so that scores computed chunk by chunk add up to the
-    per-step scores of the whole run (:func:`per_step_from`).
+    behind ``per_step`` (NaN left out), counted from where :func:`score_tasks` was told to
+    start: scored chunk by chunk, each chunk carrying on from the previous one, the last
+    chunk's are the whole run's (:func:`per_step_from`).
     """
 
     per_task: np.ndarray
@@ -265,7 +266,7 @@ class Scored:
 
 def per_step_from(column: str, step_sum: np.ndarray, step_count: np.ndarray) -> np.ndarray:
     """Per-step scores from summed pointwise losses: the mean (its root for a root metric);
-    NaN at a step without any loss. The same arithmetic as ``numpy.nanmean`` over the losses."""
+    NaN at a step without any loss."""
     with np.errstate(invalid="ignore", divide="ignore"):
         mean = step_sum / step_count
     if metric_of(column).reduction == "root_mean":
@@ -327,11 +328,14 @@ def score_tasks(
     levels: tuple[float, ...],
     mase_scale: np.ndarray,
     rmsse_scale: np.ndarray,
+    carry: dict[str, tuple[np.ndarray, np.ndarray]] | None = None,
 ) -> dict[str, Scored]:
     """Score ``forecast`` (n, H) against ``actual`` (n, H) on every metric column.
 
     ``lower`` / ``upper`` are (levels, n, H); scales are per task (n,). Rows of ``forecast``
-    that are NaN (failed tasks) score NaN and are not counted as undefined.
+    that are NaN (failed tasks) score NaN and are not counted as undefined. ``carry`` gives,
+    per column, the per-step sums and counts of the tasks scored before these (earlier
+    chunks): the per-step figures then cover those tasks too.
     """
     out: dict[str, Scored] = {}
     failed = np.isnan(forecast).any(axis=1)
@@ -345,7 +349,7 @@ def score_tasks(
             per_task[failed | ~scored] = np.nan
             h = actual.shape[1]
             out[col] = Scored(per_task, np.full(h, np.nan), ok & scored & np.isnan(per_task),
-                              np.zeros(h), np.zeros(h, dtype=np.intp))
+                              np.zeros(h), np.zeros(h, dtype=np.int64))
             continue
         x = LossInput(actual, forecast, mase_scale, rmsse_scale)
         if m.per_level:
@@ -361,13 +365,29 @@ def score_tasks(
             undefined &= ~np.isnan(x.lower).all(axis=1)
         kept = loss[ok]
         missing = np.isnan(kept)
-        # the sum and count that numpy.nanmean divides, kept so that chunks can add them up
-        step_sum = np.where(missing, 0.0, kept).sum(axis=0)
-        step_count = (~missing).sum(axis=0, dtype=np.intp)
-        per_step = (per_step_from(col, step_sum, step_count) if ok.any()
-                    else np.full(loss.shape[1], np.nan))
+        start = (np.zeros(loss.shape[1]), np.zeros(loss.shape[1], dtype=np.int64))
+        if carry is not None and col in carry:
+            start = carry[col]
+        step_sum = running_sum(start[0], np.where(missing, 0.0, kept))
+        step_count = start[1] + (~missing).sum(axis=0, dtype=np.int64)
+        per_step = per_step_from(col, step_sum, step_count)
         out[col] = Scored(per_task, per_step, undefined, step_sum, step_count)
     return out
+
+
+def running_sum(start: np.ndarray, rows: np.ndarray) -> np.ndarray:
+    """``start`` (H,) plus every row of ``rows`` (k, H), added one row after the other.
+
+    Always in that order (``numpy.cumsum`` accumulates strictly in sequence, where ``sum`` may
+    add in pairs), so that carrying the total from one chunk of rows to the next gives the
+    same bits as one pass over all of them, whatever the chunks.
+
+    >>> running_sum(np.array([1.0]), np.array([[1e16], [-1e16]]))
+    array([0.])
+    """
+    if not len(rows):
+        return np.array(start, dtype=float, copy=True)
+    return np.cumsum(np.concatenate([start[None, :], rows]), axis=0)[-1]
 
 
 #: The rank metric when the config sets none and lists it (or lists no metrics).

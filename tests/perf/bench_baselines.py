@@ -81,15 +81,11 @@ def config_text(data: Path, forecasts: str | None, chunk: int | None) -> str:
         "    time: month",
         "    target: qty",
         "windows: {scheme: expanding, train: 48, step: 12, folds: 5}",
-        "execution: {jobs: 1, cache: false}",
+        "execution: {jobs: 1, cache: false"
+        + ("}" if chunk is None else f", chunk: {chunk}}}"),
     ]
-    output = []
     if forecasts is not None:
-        output.append(f"forecasts: {forecasts}")
-    if chunk is not None:
-        output.append(f"chunk: {chunk}")
-    if output:
-        out.append("output: {" + ", ".join(output) + "}")
+        out.append(f"output: {{forecasts: {forecasts}}}")
     return "\n".join(out) + "\n"
 
 
@@ -105,7 +101,7 @@ def main() -> int:
     ap.add_argument("--format", choices=("csv", "parquet"), default="csv")
     ap.add_argument("--forecasts", choices=("all", "compared", "none"), default=None,
                     help="output.forecasts (left out of the config when not given)")
-    ap.add_argument("--chunk", type=int, default=None, help="output.chunk (series per chunk)")
+    ap.add_argument("--chunk", type=int, default=None, help="execution.chunk (series per chunk)")
     ap.add_argument("--keep", default=None, help="work in this folder and keep it")
     args = ap.parse_args()
     with tempfile.TemporaryDirectory() as tmp:
