@@ -20,8 +20,6 @@ from runner.scoring.significance import (
     diebold_mariano,
     diebold_mariano_by_series,
     dm_lag_order,
-    normal_sf,
-    student_sf,
     wilcoxon_pvalue,
 )
 
@@ -244,19 +242,14 @@ def _wilcoxon_cases() -> list[np.ndarray]:
 
 def test_wilcoxon_pvalue_is_scipys() -> None:
     """Reference: scipy.stats.wilcoxon with its defaults (zero_method "wilcox", no
-    continuity correction, method "auto"), on samples reaching each of its branches. The exact
-    branch is the same arithmetic in the same order (equal to the last bit on one machine); the
-    normal approximation takes its tail from math.erfc, scipy from its own erfc (1e-13)."""
+    continuity correction, method "auto"), on samples reaching each of its branches. The same
+    arithmetic in the same order, so the p-values agree to the last bit on one machine."""
     for d in _wilcoxon_cases():
         mine = wilcoxon_pvalue(d)
         if np.count_nonzero(d) < 2:
             assert math.isnan(mine)
             continue
-        ref = stats.wilcoxon(d).pvalue
-        if len(d) <= 50 and len(np.unique(np.abs(d))) == len(d) and np.all(d != 0):
-            assert mine == ref, (len(d), d[:4])
-        else:
-            assert mine == pytest.approx(ref, rel=1e-13, abs=1e-300), (len(d), d[:4])
+        assert mine == stats.wilcoxon(d).pvalue, (len(d), d[:4])
 
 
 def test_average_ranks_are_scipys() -> None:
@@ -277,18 +270,4 @@ def test_dm_by_series_p_values_are_scipys_t() -> None:
     series = np.repeat(np.arange(10), 6)
     folds = np.tile(np.arange(6), 10)
     _, stat, p = diebold_mariano_by_series(d, series, folds, 2)
-    np.testing.assert_allclose(p, 2.0 * stats.t.sf(np.abs(stat), df=5), rtol=1e-12)
-
-
-def test_student_and_normal_tails_are_scipys() -> None:
-    """Reference: scipy.stats.t.sf and scipy.stats.norm.sf, relative error below 1e-10 over
-    the degrees of freedom a fold count gives and t from 0 to deep in the tail (p ~ 1e-40)."""
-    t = np.concatenate([np.linspace(0.0, 40.0, 401), [0.5, 1.96, 2.2281, 12.706]])
-    for df in [*range(1, 40), 60, 120, 500]:
-        ref = stats.t.sf(t, df)
-        np.testing.assert_allclose(student_sf(t, df), ref, rtol=1e-10, atol=1e-300)
-        np.testing.assert_allclose(student_sf(-t, df), stats.t.sf(-t, df), rtol=1e-12)
-    for z in np.linspace(0.0, 37.0, 75):
-        assert normal_sf(z) == pytest.approx(stats.norm.sf(z), rel=1e-12, abs=1e-300)
-    # a textbook value (Student's t table): the two-sided 5% point of t with 10 df is 2.2281
-    assert 2 * student_sf(np.array([2.2281]), 10)[0] == pytest.approx(0.05, abs=1e-5)
+    assert np.array_equal(p, 2.0 * stats.t.sf(np.abs(stat), df=5), equal_nan=True)

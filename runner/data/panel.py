@@ -29,6 +29,8 @@ import math
 import re
 import warnings
 from collections import Counter
+from collections.abc import Iterator
+from contextlib import contextmanager
 from dataclasses import dataclass, field
 from functools import cached_property
 from pathlib import Path
@@ -236,13 +238,16 @@ class _Rows:
     offsets: np.ndarray = field(default_factory=lambda: np.zeros(1, np.int64))
 
     def sort(self) -> None:
-        # One int64 key (series, dense time rank) sorts 3-4x faster than np.lexsort; files
-        # written in order skip the sort altogether.
-        codes, uniques = pd.factorize(self.t)
-        rank = np.empty(len(uniques), dtype=np.int64)
-        rank[np.argsort(uniques)] = np.arange(len(uniques))
-        key = self.sid * len(uniques) + rank[codes]
-        if np.any(key[1:] < key[:-1]):
+        # Files written in order (series, then time) skip the sort altogether; the check needs
+        # no more than two boolean arrays. Otherwise one int64 key (series, dense time rank)
+        # sorts 3-4x faster than np.lexsort.
+        later = self.sid[1:] > self.sid[:-1]
+        later |= (self.sid[1:] == self.sid[:-1]) & (self.t[1:] >= self.t[:-1])
+        if not later.all():
+            codes, uniques = pd.factorize(self.t)
+            rank = np.empty(len(uniques), dtype=np.int64)
+            rank[np.argsort(uniques)] = np.arange(len(uniques))
+            key = self.sid.astype(np.int64) * len(uniques) + rank[codes]
             order = np.argsort(key)
             self.sid, self.t, self.v, self.row = (
                 self.sid[order], self.t[order], self.v[order], self.row[order]
@@ -310,13 +315,14 @@ def _read_table(path: Path, ds: DatasetConfig, src: _Source) -> pd.DataFrame:
         raise src.fail("file has no columns")
     needed = _needed_columns(ds, columns, src)
     try:
-        if kind == "parquet":
-            import pyarrow.parquet as pq
+        with _returning_memory():
+            if kind == "parquet":
+                import pyarrow.parquet as pq
 
-            table = pq.read_table(path, columns=needed)
-        else:
-            table = _read_csv(path, needed, ds, len(columns), src)
-        frame = _to_frame(table, ds, src)
+                read = [pq.read_table(path, columns=needed)]
+            else:
+                read = [_read_csv(path, needed, ds, len(columns), src)]
+            frame = _to_frame(read, ds, src)  # takes the table out of the list: no copy kept
     except DataError:
         raise
     except Exception as exc:  # truncated gzip, damaged parquet, bad encoding
@@ -324,6 +330,21 @@ def _read_table(path: Path, ds: DatasetConfig, src: _Source) -> pd.DataFrame:
     if len(frame) == 0:
         raise src.fail("no data rows")
     return frame
+
+
+@contextmanager
+def _returning_memory() -> Iterator[None]:
+    """Arrow allocates through the C library's allocator meanwhile: its own pool keeps what
+    a read freed for later reads, and a file of a million series would keep gigabytes that the
+    run needs for the rest (the C library returns large blocks as they are freed)."""
+    import pyarrow as pa
+
+    before = pa.default_memory_pool()
+    pa.set_memory_pool(pa.system_memory_pool())
+    try:
+        yield
+    finally:
+        pa.set_memory_pool(before)
 
 
 def _open_text(path: Path) -> io.TextIOBase:
@@ -369,7 +390,9 @@ def _read_csv(
             parse_options=pcsv.ParseOptions(newlines_in_values=True),
             convert_options=pcsv.ConvertOptions(
                 include_columns=needed,
-                column_types={c: pa.string() for c in ds.series_columns},
+                # text, dictionary-encoded: each key is held once however many its rows
+                column_types={c: pa.dictionary(pa.int32(), pa.string())
+                              for c in ds.series_columns},
                 null_values=MISSING_TOKENS,
                 # Key columns keep every text ("NA" is a region); other text columns get
                 # their missing tokens nulled in _to_frame.
@@ -440,7 +463,7 @@ def _type_problem(t: Any, role: str) -> str | None:
     return f"expected {expected}, found {found}"
 
 
-def _to_frame(table: Any, ds: DatasetConfig, src: _Source) -> pd.DataFrame:
+def _to_frame(read: list[Any], ds: DatasetConfig, src: _Source) -> pd.DataFrame:
     """A pyarrow table as a DataFrame the loader's array stages accept, types checked first.
 
     Dictionary columns are decoded, decimals become floats, dates become datetimes, and the
@@ -449,14 +472,19 @@ def _to_frame(table: Any, ds: DatasetConfig, src: _Source) -> pd.DataFrame:
     import pyarrow as pa
     import pyarrow.compute as pc
 
+    table = read.pop()
     keys = set(ds.series_columns)
     tokens = pa.array(MISSING_TOKENS, type=pa.string())
     arrays = []
     for name, col in zip(table.column_names, table.columns):
-        if pa.types.is_dictionary(col.type):
-            col = col.cast(col.type.value_type)
         role = "series" if name in keys else "time" if name == ds.time else "value"
-        problem = _type_problem(col.type, role)
+        if pa.types.is_dictionary(col.type) and not (
+                role == "series" and pa.types.is_string(col.type.value_type)):
+            col = col.cast(col.type.value_type)
+        # a key column of text stays dictionary-encoded (a pandas Categorical): its names are
+        # held once, not once per row (a million series of 120 rows)
+        problem = _type_problem(col.type.value_type if pa.types.is_dictionary(col.type)
+                                else col.type, role)
         if problem is not None:
             raise src.fail(f'column "{name}": {problem}')
         if pa.types.is_decimal(col.type):
@@ -467,8 +495,12 @@ def _to_frame(table: Any, ds: DatasetConfig, src: _Source) -> pd.DataFrame:
             col = pc.if_else(pc.is_in(col, value_set=tokens), pa.scalar(None, pa.string()), col)
         arrays.append(col)
     table = pa.table(arrays, names=table.column_names)
-    # date_as_object=False: dates become datetime64, not Python date objects.
-    return table.to_pandas(date_as_object=False, ignore_metadata=True)
+    del arrays
+    # date_as_object=False: dates become datetime64, not Python date objects. The Arrow
+    # columns are released as they are converted, and not consolidated into one block: for a
+    # large file, the table and the frame are never both held whole.
+    return table.to_pandas(date_as_object=False, ignore_metadata=True, split_blocks=True,
+                           self_destruct=True)
 
 
 def _reason(exc: Exception) -> str:
@@ -522,12 +554,15 @@ def _needed_columns(ds: DatasetConfig, columns: list[str], src: _Source) -> list
 def _long_rows(frame: pd.DataFrame, ds: DatasetConfig, src: _Source) -> _Rows:
     n = len(frame)
     sid, keys = _series_ids(frame, ds.series_columns, src)
-    t, is_date = _parse_times(frame[ds.time], ds.time, src)
-    v = _numeric(frame[ds.target], ds.target, src)
+    # each column leaves the frame once it is converted: a large file is not held twice
+    for col in ds.series_columns:
+        del frame[col]
+    t, is_date = _parse_times(frame.pop(ds.time), ds.time, src)
+    v = _numeric(frame.pop(ds.target), ds.target, src)
     cov = None
     if ds.covariates:
         cov = np.column_stack([_numeric(frame[c], c, src) for c in ds.covariates])
-    row = np.arange(1, n + 1, dtype=np.int64)
+    row = np.arange(1, n + 1, dtype=np.int32 if n < 2**31 else np.int64)
     return _Rows(sid=sid, t=t, v=v, cov=cov, row=row, keys=keys, is_date=is_date)
 
 
@@ -540,12 +575,14 @@ def _series_ids(
         codes, uniques = pd.factorize(frame[col], use_na_sentinel=True)
         names = np.asarray(pd.Index(uniques).astype(str), dtype=object)
         empty = codes < 0
-        if len(names):
-            empty |= names[np.maximum(codes, 0)] == ""
+        blank = np.flatnonzero(names == "")  # looked up among the names, not per row
+        if len(blank):
+            empty |= np.isin(codes, blank)
         if empty.any():
             raise src.fail(f'column "{col}": empty series name (row {int(np.argmax(empty)) + 1})')
         order = np.argsort(names.astype(str), kind="stable")
-        rank = np.empty(len(order), dtype=np.int64)
+        # int32 codes for up to 2**31 series: half the memory of a row's series id
+        rank = np.empty(len(order), dtype=np.int32 if len(order) < 2**31 else np.int64)
         rank[order] = np.arange(len(order))
         codes_per_col.append(rank[codes])
         names_per_col.append(names[order])
@@ -565,7 +602,7 @@ def _series_ids(
             parts = tuple(rows_u[:, j] for j in range(rows_u.shape[1]))
         cols = [names_per_col[j][parts[j]] for j in range(len(columns))]
         keys = ["/".join(str(x) for x in tup) for tup in zip(*cols)]
-    sid = np.asarray(sid, dtype=np.int64).ravel()
+    sid = np.asarray(sid).ravel()
     if len(set(keys)) != len(keys):
         dup = next(k for k, count in Counter(keys).items() if count > 1)
         raise src.fail(f'series "{dup}": two different series get this name; avoid "/" in keys')
@@ -844,9 +881,8 @@ def _date_axis(rows: _Rows, offset: poff.BaseOffset, src: _Source) -> _Axis:
             start=pd.Timestamp(lo), end=pd.Timestamp(hi), freq=offset, unit="ns"
         ).asi8.astype(np.int64)
         pos = np.searchsorted(grid, rows.t)
-        hit = pos < len(grid)
-        hit[hit] = grid[pos[hit]] == rows.t[hit]
-        misfit = ~hit
+        # a time past the grid's last point finds the sentinel after it, which no time equals
+        misfit = np.append(grid, hi + 1)[pos] != rows.t
         axis = _Axis(unit=1, grid=grid, pos=pos)
     if misfit.any():
         # Report the misfit that comes first in the file.
@@ -1058,8 +1094,9 @@ def _fingerprint(
         b = text.encode("utf-8")
         h.update(len(b).to_bytes(8, "little") + b)
     h.update(b"D" if is_date else b"I")
+    # the arrays' own memory is hashed (no bytes copy of a panel's values)
     for arr, dt in ((offsets, "<i8"), (t, "<i8"), (values, "<f8")):
-        h.update(np.ascontiguousarray(arr, dtype=dt).tobytes())
+        h.update(memoryview(np.ascontiguousarray(arr, dtype=dt)).cast("B"))
     if cov is not None:
-        h.update(np.ascontiguousarray(cov, dtype="<f8").tobytes())
+        h.update(memoryview(np.ascontiguousarray(cov, dtype="<f8")).cast("B"))
     return h.hexdigest()

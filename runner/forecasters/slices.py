@@ -68,9 +68,13 @@ def row_sums(mat: np.ndarray) -> np.ndarray:
     >>> row_sums(np.array([[np.nan, 1.0, 2.0], [3.0, 4.0, 5.0]]))
     array([ 3., 12.])
     """
-    if mat.shape[1] == 0:
-        return np.zeros(len(mat))
-    return np.add.accumulate(np.where(np.isnan(mat), 0.0, mat), axis=1)[:, -1]
+    # column by column over a transposed copy: each addition is one contiguous vector add
+    columns = np.ascontiguousarray(mat.T)
+    np.copyto(columns, 0.0, where=np.isnan(columns))
+    out = np.zeros(len(mat))
+    for column in columns:
+        out += column
+    return out
 
 
 @dataclass

@@ -387,7 +387,9 @@ def running_sum(start: np.ndarray, rows: np.ndarray) -> np.ndarray:
     """
     if not len(rows):
         return np.array(start, dtype=float, copy=True)
-    return np.cumsum(np.concatenate([start[None, :], rows]), axis=0)[-1]
+    # one contiguous row per step: cumsum along it runs straight through memory
+    by_step = np.concatenate([np.asarray(start, dtype=float)[:, None], rows.T], axis=1)
+    return np.cumsum(by_step, axis=1)[:, -1]
 
 
 #: The rank metric when the config sets none and lists it (or lists no metrics).
