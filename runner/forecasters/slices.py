@@ -56,6 +56,31 @@ def padded(
     return out
 
 
+def padded_columns(
+    values: np.ndarray | SliceFill, starts: np.ndarray, ends: np.ndarray
+) -> np.ndarray:
+    """:func:`padded` transposed, built contiguous: (longest slice, tasks), column i ends with
+    ``values[ends[i]-1]`` in the last row."""
+    fill = values if isinstance(values, SliceFill) else SliceFill(values)
+    lengths = ends - starts
+    width = int(lengths.max()) if len(lengths) else 0
+    rows = np.arange(-width, 0, dtype=np.int64)
+    idx = rows[:, None] + ends[None, :]
+    valid = idx >= starts[None, :]
+    out = fill.take(np.where(valid, idx, starts[None, :]), starts[None, :], ends[None, :])
+    out[~valid] = np.nan
+    return out
+
+
+def column_sums(cols: np.ndarray) -> np.ndarray:
+    """:func:`row_sums` of a transposed matrix (``cols`` from :func:`padded_columns`): each
+    column summed from the top row down, NaN counted as 0."""
+    out = np.zeros(cols.shape[1])
+    for row in cols:
+        out += np.where(np.isnan(row), 0.0, row)
+    return out
+
+
 def row_sums(mat: np.ndarray) -> np.ndarray:
     """The sum of each row of a padded matrix, NaN (padding) counted as 0, added from left to
     right.
@@ -69,12 +94,7 @@ def row_sums(mat: np.ndarray) -> np.ndarray:
     array([ 3., 12.])
     """
     # column by column over a transposed copy: each addition is one contiguous vector add
-    columns = np.ascontiguousarray(mat.T)
-    np.copyto(columns, 0.0, where=np.isnan(columns))
-    out = np.zeros(len(mat))
-    for column in columns:
-        out += column
-    return out
+    return column_sums(np.ascontiguousarray(mat.T))
 
 
 @dataclass
@@ -112,19 +132,21 @@ def summarise(
     fields["observed"] = (known[ends] - known[starts]).astype(float)
     m = max(int(season), 1)
     for part in chunks(starts, ends):
-        mat = padded(fill, starts[part], ends[part])
+        # one row per position (the slices right-aligned, the last value in the last row):
+        # each sum below is a run of contiguous vector additions, in a fixed order
+        mat = padded_columns(fill, starts[part], ends[part])
         length = fields["length"][part]
         with np.errstate(invalid="ignore", divide="ignore"):
-            mean = row_sums(mat) / length
-            d = np.diff(mat, axis=1)
-            c = row_sums(d) / (length - 1)
-            ds = mat[:, m:] - mat[:, :-m] if mat.shape[1] > m else np.full((len(mat), 0), np.nan)
-            fields["first"][part] = mat[np.arange(len(mat)), mat.shape[1] - length.astype(int)]
-            fields["last"][part] = mat[:, -1]
+            mean = column_sums(mat) / length
+            d = np.diff(mat, axis=0)
+            c = column_sums(d) / (length - 1)
+            ds = mat[m:] - mat[:-m] if len(mat) > m else np.full((0, mat.shape[1]), np.nan)
+            fields["first"][part] = mat[len(mat) - length.astype(int), np.arange(mat.shape[1])]
+            fields["last"][part] = mat[-1]
             fields["mean"][part] = mean
-            fields["mean_sq"][part] = row_sums((mat - mean[:, None]) ** 2)
-            fields["diff_sq"][part] = row_sums(d**2)
-            fields["drift_sq"][part] = row_sums((d - c[:, None]) ** 2)
-            fields["seasonal_abs"][part] = row_sums(np.abs(ds))
-            fields["seasonal_sq"][part] = row_sums(ds**2)
+            fields["mean_sq"][part] = column_sums((mat - mean) ** 2)
+            fields["diff_sq"][part] = column_sums(d**2)
+            fields["drift_sq"][part] = column_sums((d - c) ** 2)
+            fields["seasonal_abs"][part] = column_sums(np.abs(ds))
+            fields["seasonal_sq"][part] = column_sums(ds**2)
     return SliceSummary(**fields)
