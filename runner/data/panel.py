@@ -315,7 +315,7 @@ def _read_table(path: Path, ds: DatasetConfig, src: _Source) -> pd.DataFrame:
         raise src.fail("file has no columns")
     needed = _needed_columns(ds, columns, src)
     try:
-        with _returning_memory():
+        with _returning_memory(kind):
             if kind == "parquet":
                 import pyarrow.parquet as pq
 
@@ -333,18 +333,22 @@ def _read_table(path: Path, ds: DatasetConfig, src: _Source) -> pd.DataFrame:
 
 
 @contextmanager
-def _returning_memory() -> Iterator[None]:
-    """Arrow allocates through the C library's allocator meanwhile: its own pool keeps what
-    a read freed for later reads, and a file of a million series would keep gigabytes that the
-    run needs for the rest (the C library returns large blocks as they are freed)."""
+def _returning_memory(kind: str) -> Iterator[None]:
+    """Memory a read used goes back to the system when the read is done: Arrow's own pool
+    keeps it for later reads, and a file of a million series would keep gigabytes that the
+    run needs for the rest. A Parquet read allocates through the C library meanwhile (which
+    returns large blocks as they are freed); the CSV reader's many small blocks fare better in
+    Arrow's pool, released at the end (measured with tests/perf/bench_baselines.py)."""
     import pyarrow as pa
 
     before = pa.default_memory_pool()
-    pa.set_memory_pool(pa.system_memory_pool())
+    if kind == "parquet":
+        pa.set_memory_pool(pa.system_memory_pool())
     try:
         yield
     finally:
         pa.set_memory_pool(before)
+        before.release_unused()
 
 
 def _open_text(path: Path) -> io.TextIOBase:
