@@ -169,3 +169,13 @@ def test_a_chunk_holds_its_series_whole_and_no_more(tmp_path: Path) -> None:
         assert sorted(x for _, s in mine for x in s) == sorted(set(dp.series.tolist()))
         # nothing of the forecasts is kept once the chunks are written
         assert all(r.point is None for r in ev.datasets[d].results)
+
+
+def test_scoring_prints_nothing_and_returns_its_notes(tmp_path: Path, capfd) -> None:
+    ev = evaluate(prepare(_write(tmp_path, 2)), quiet=False)
+    # the engine's progress line of the plugin's tasks, and nothing else
+    err = capfd.readouterr().err.splitlines()
+    assert err and all(line.startswith("castgrid: model tasks") for line in err), err
+    a = ev.datasets[0]
+    assert any("1 missing actual(s)" in note for note in a.notes)
+    assert any("undefined" in w for w in a.warnings)  # the constant series' mase
