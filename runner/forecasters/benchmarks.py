@@ -93,7 +93,7 @@ class _Baseline:
 
     def forecast_many(
         self,
-        values: np.ndarray,
+        values: np.ndarray | SliceFill,
         starts: np.ndarray,
         ends: np.ndarray,
         horizon: int,
@@ -105,11 +105,12 @@ class _Baseline:
         """Forecast every slice ``values[starts[i]:ends[i]]`` ``horizon`` steps ahead.
 
         ``summary`` (from :func:`~runner.forecasters.slices.summarise` on the same slices)
-        saves recomputing the per-slice statistics.
+        saves recomputing the per-slice statistics; ``values`` may be a
+        :class:`~runner.forecasters.gaps.SliceFill` of them, shared by many calls.
         """
         starts = np.asarray(starts, dtype=np.int64)
         ends = np.asarray(ends, dtype=np.int64)
-        fill = SliceFill(values)
+        fill = values if isinstance(values, SliceFill) else SliceFill(values)
         if summary is None:
             summary = summarise(fill, starts, ends, season)
         n_levels = len(levels)

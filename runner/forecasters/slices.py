@@ -122,14 +122,15 @@ def summarise(
 ) -> SliceSummary:
     """Compute :class:`SliceSummary` for every slice ``values[starts[i]:ends[i]]``.
 
-    Statistics are of the filled slices (see :mod:`runner.forecasters.gaps`).
+    Statistics are of the filled slices (see :mod:`runner.forecasters.gaps`). Pass a
+    :class:`SliceFill` to compute many batches of slices of one array: what it derives from
+    the whole array is then derived once.
     """
     fill = values if isinstance(values, SliceFill) else SliceFill(values)
     n = len(starts)
     fields = {name: np.full(n, np.nan) for name in SliceSummary.__dataclass_fields__}
     fields["length"] = (ends - starts).astype(float)
-    known = np.concatenate([[0], np.cumsum(~np.isnan(fill.values), dtype=np.int64)])
-    fields["observed"] = (known[ends] - known[starts]).astype(float)
+    fields["observed"] = fill.observed(starts, ends).astype(float)
     m = max(int(season), 1)
     for part in chunks(starts, ends):
         # one row per position (the slices right-aligned, the last value in the last row):

@@ -26,6 +26,7 @@ from runner.execution.dispatch import EngineCounts, forecast_models
 from runner.execution.model_tasks import build_model_tasks
 from runner.execution.panel_tasks import build_panel_tasks, panel_results, panel_rows
 from runner.execution.tasks import ModelTask, TaskOutcome
+from runner.forecasters.gaps import SliceFill
 from runner.forecasters.recorded import recorded_forecasts
 from runner.forecasters.registry import build, is_vectorised
 from runner.forecasters.slices import SliceSummary, summarise
@@ -169,8 +170,9 @@ def _evaluate_dataset(plan: Plan, d: int, whole: Results, sink: Sink | None) -> 
     gathered = {f: Gathered(plan.forecasters[f]) for f in dp.forecasters}
     tally = Tally(cols)
     chunk: Chunk | None = None
+    fill = SliceFill(dp.panel.values)  # what it derives from the whole panel, derived once
     for tasks in spans:
-        sub, summary, results = _forecast_chunk(plan, dp, tasks, whole)
+        sub, summary, results = _forecast_chunk(plan, dp, fill, tasks, whole)
         carry = {f: gathered[f].carry() for f in dp.forecasters}
         actual = _score_chunk(plan, sub, summary, results, carry)
         chunk = Chunk(d, sub, tasks, actual, results, summary)
@@ -192,19 +194,19 @@ def _evaluate_dataset(plan: Plan, d: int, whole: Results, sink: Sink | None) -> 
 
 
 def _forecast_chunk(
-    plan: Plan, dp: DatasetPlan, tasks: slice, whole: Results
+    plan: Plan, dp: DatasetPlan, fill: SliceFill, tasks: slice, whole: Results
 ) -> tuple[DatasetPlan, SliceSummary, list[ForecasterResult]]:
     """The forecasts of the tasks ``tasks`` of ``dp``: benchmarks and derived candidates
-    computed here, the engine's results cut from ``whole``; in the dataset's forecaster
-    order, with the chunk's plan and training-slice statistics."""
+    computed here (``fill``: the panel's values), the engine's results cut from ``whole``;
+    in the dataset's forecaster order, with the chunk's plan and training-slice statistics."""
     horizon, levels = plan.config.horizon, tuple(plan.config.intervals)
     sub = chunk_plan(dp, tasks)
-    summary = summarise(sub.panel.values, sub.starts, sub.ends, sub.panel.season)
+    summary = summarise(fill, sub.starts, sub.ends, sub.panel.season)
     results: Results = {}
     for f in dp.forecasters:
         spec = plan.forecasters[f]
         if is_vectorised(spec):
-            results[f] = _baseline_result(spec, sub, summary, horizon, levels)
+            results[f] = _baseline_result(spec, sub, fill, summary, horizon, levels)
         elif f in whole:
             results[f] = whole[f] if sub is dp else cut(whole[f], tasks)
     add_derived_dataset(plan, sub, summary, results)  # combinations, selections
@@ -212,14 +214,14 @@ def _forecast_chunk(
 
 
 def _baseline_result(
-    spec: ForecasterSpec, dp: DatasetPlan, summary: SliceSummary, horizon: int,
-    levels: tuple[float, ...],
+    spec: ForecasterSpec, dp: DatasetPlan, fill: SliceFill, summary: SliceSummary,
+    horizon: int, levels: tuple[float, ...],
 ) -> ForecasterResult:
     model = build(spec)
     # Forecast through the gap (if any) and keep the last ``horizon`` steps: the scored block.
     gap = int(dp.test_starts[0] - dp.ends[0]) if dp.n_tasks else 0
     b = model.forecast_many(
-        dp.panel.values, dp.starts, dp.ends, horizon + gap,
+        fill, dp.starts, dp.ends, horizon + gap,
         season=dp.panel.season, levels=levels, summary=summary,
     )
     b.point, b.lower, b.upper = b.point[:, gap:], b.lower[:, :, gap:], b.upper[:, :, gap:]

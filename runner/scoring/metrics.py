@@ -389,7 +389,7 @@ def running_sum(start: np.ndarray, rows: np.ndarray) -> np.ndarray:
         return np.array(start, dtype=float, copy=True)
     # one contiguous row per step: cumsum along it runs straight through memory
     by_step = np.concatenate([np.asarray(start, dtype=float)[:, None], rows.T], axis=1)
-    return np.cumsum(by_step, axis=1)[:, -1]
+    return np.cumsum(by_step, axis=1)[:, -1].copy()  # not a view keeping the whole cumsum
 
 
 #: The rank metric when the config sets none and lists it (or lists no metrics).
