@@ -903,12 +903,14 @@ def _require_one_step(
     rows: _Rows, axis: _Axis, same: np.ndarray, counts: np.ndarray, src: _Source, what: str
 ) -> None:
     """Reject a series observed at a coarser step than the panel (e.g. every 3rd month)."""
-    d = (axis.pos[1:] - axis.pos[:-1])[same]
     multi = np.flatnonzero(counts > 1)
     if not len(multi):
         return
-    pair_starts = (rows.offsets[:-1] - np.arange(len(counts)))[multi]
-    per_series = np.gcd.reduceat(d, pair_starts)
+    # steps between neighbours, 0 across a series boundary (gcd(x, 0) = x): one array, no
+    # compacted copy; series i's steps start at offsets[i]
+    d = np.diff(axis.pos)
+    d[~same] = 0
+    per_series = np.gcd.reduceat(d, rows.offsets[:-1][multi])
     coarse = np.flatnonzero(per_series > 1)
     if len(coarse):
         i = int(multi[coarse[0]])
