@@ -59,31 +59,40 @@ def cut(r: ForecasterResult, tasks: slice) -> ForecasterResult:
 
 @dataclass
 class Gathered:
-    """What is kept of one forecaster's chunks for the whole run (see the module doc)."""
+    """What is kept of one forecaster's chunks for the whole run (see the module doc): the
+    per-task arrays are allocated for the dataset's ``total`` tasks at once and filled chunk
+    by chunk (no list of parts to join at the end, which would hold them twice)."""
 
     spec: ForecasterSpec
+    total: int
     n: int = 0
-    per_task: dict[str, list[np.ndarray]] = field(default_factory=dict)
-    undefined: dict[str, list[np.ndarray]] = field(default_factory=dict)
+    per_task: dict[str, np.ndarray] = field(default_factory=dict)
+    undefined: dict[str, np.ndarray] = field(default_factory=dict)
     last: dict[str, M.Scored] = field(default_factory=dict)
-    versus_reference: list[np.ndarray] = field(default_factory=list)
+    versus_reference: np.ndarray | None = None
     reason: dict[int, str] = field(default_factory=dict)
     message: dict[int, str] = field(default_factory=dict)
     info: list[dict] = field(default_factory=list)
 
     def add(self, r: ForecasterResult) -> None:
         """Keep the scores and failures of the next chunk's result (in task order)."""
+        lo, hi = self.n, self.n + len(r.reason)
         for col, sc in r.scores.items():
-            self.per_task.setdefault(col, []).append(sc.per_task)
-            self.undefined.setdefault(col, []).append(sc.undefined)
+            if col not in self.per_task:
+                self.per_task[col] = np.empty(self.total)
+                self.undefined[col] = np.empty(self.total, dtype=bool)
+            self.per_task[col][lo:hi] = sc.per_task
+            self.undefined[col][lo:hi] = sc.undefined
             self.last[col] = sc  # its step sums run over every chunk so far
         assert r.versus_reference is not None
-        self.versus_reference.append(r.versus_reference)
+        if self.versus_reference is None:
+            self.versus_reference = np.empty(self.total)
+        self.versus_reference[lo:hi] = r.versus_reference
         for t in np.flatnonzero(r.failed):
-            self.reason[self.n + int(t)] = r.reason[t]  # type: ignore[assignment]
-            self.message[self.n + int(t)] = r.message[t]
+            self.reason[lo + int(t)] = r.reason[t]  # type: ignore[assignment]
+            self.message[lo + int(t)] = r.message[t]
         self.info.extend(r.info)
-        self.n += len(r.reason)
+        self.n = hi
 
     def carry(self) -> dict[str, tuple[np.ndarray, np.ndarray]]:
         """The per-step sums and counts so far, per metric column: where the next chunk's
@@ -96,15 +105,15 @@ class Gathered:
 
     def result(self) -> ForecasterResult:
         """The forecaster's result over every chunk added (no forecasts)."""
+        assert self.n == self.total and self.versus_reference is not None
         scores = {
-            col: M.Scored(np.concatenate(parts), self.last[col].per_step,
-                          np.concatenate(self.undefined[col]), self.last[col].step_sum,
-                          self.last[col].step_count)
-            for col, parts in self.per_task.items()
+            col: M.Scored(per_task, self.last[col].per_step, self.undefined[col],
+                          self.last[col].step_sum, self.last[col].step_count)
+            for col, per_task in self.per_task.items()
         }
         return ForecasterResult(
             self.spec, None, None, None, Sparse(self.n, self.reason, None),
-            Sparse(self.n, self.message, ""), scores, np.concatenate(self.versus_reference),
+            Sparse(self.n, self.message, ""), scores, self.versus_reference,
             self.info if len(self.info) == self.n else [],
         )
 

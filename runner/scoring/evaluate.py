@@ -167,7 +167,7 @@ def _evaluate_dataset(plan: Plan, d: int, whole: Results, sink: Sink | None) -> 
     dp = plan.datasets[d]
     cols = M.columns(plan.config.metrics, tuple(plan.config.intervals))
     spans = list(series_chunks(dp, plan.config.execution.chunk))
-    gathered = {f: Gathered(plan.forecasters[f]) for f in dp.forecasters}
+    gathered = {f: Gathered(plan.forecasters[f], dp.n_tasks) for f in dp.forecasters}
     tally = Tally(cols)
     chunk: Chunk | None = None
     fill = SliceFill(dp.panel.values)  # what it derives from the whole panel, derived once
