@@ -15,6 +15,7 @@ import io
 import json
 import re
 import subprocess
+from collections.abc import Iterator
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
@@ -299,6 +300,27 @@ def read_arrow(folder: ResultsFolder, name: str, columns: list[str] | None,
         table = f.read_row_groups(groups, columns=wanted)
         table = ds.dataset(table).to_table(filter=pq.filters_to_expression(filters))
         return table if columns is None else table.select(columns)
+    except DataError:
+        raise
+    except Exception as exc:  # pyarrow raises several types for a damaged file
+        raise DataError(f"{folder.where(name)}: not a readable Parquet file ({exc})") from None
+
+
+def iter_arrow(folder: ResultsFolder, name: str, columns: list[str],
+               filters: list[tuple[str, str, Any]]) -> Iterator[Any]:
+    """:func:`read_arrow` a row group at a time: one Arrow table per row group that can hold
+    selected rows, for summing up a file larger than memory should hold at once."""
+    import pyarrow.dataset as ds
+    import pyarrow.parquet as pq
+
+    try:
+        f = pq.ParquetFile(_parquet_source(folder, name))
+        wanted = list(dict.fromkeys(columns + [c for c, _, _ in filters
+                                               if c in f.schema_arrow.names]))
+        expression = pq.filters_to_expression(filters)
+        for g in _row_groups(f.metadata, filters):
+            table = ds.dataset(f.read_row_group(g, columns=wanted)).to_table(filter=expression)
+            yield table.select(columns)
     except DataError:
         raise
     except Exception as exc:  # pyarrow raises several types for a damaged file

@@ -24,6 +24,7 @@ from runner.output.reader import (
     HORIZON,
     SCORES,
     ResultsFolder,
+    iter_arrow,
     read_arrow,
     read_columns,
     read_leaderboard,
@@ -68,37 +69,40 @@ class Results:
     def fold_scores(self, dataset: str, metric: str) -> pd.DataFrame:
         """``metric`` of ``dataset`` averaged per forecaster and fold (over the fold's
         series, missing scores left out): columns dataset, forecaster, fold and, when it
-        names the folds one to one, origin (see :func:`fold_key`), then ``metric``."""
+        names the folds one to one, origin (see :func:`fold_key`), then ``metric``.
+
+        Read from the file a row group at a time, summed per forecaster, fold and origin:
+        the scores of a million series are not held at once."""
+        import numpy as np
+        import pandas as pd
         import pyarrow as pa
-        import pyarrow.compute as pc
 
         if self.scores is not None:
             part = self.scores[self.scores["dataset"] == dataset]
             columns = [c for c in ("dataset", "forecaster", "fold", "origin", metric)
                        if c in part.columns]
-            table = pa.Table.from_pandas(part[columns], preserve_index=False)
+            tables: Any = [pa.Table.from_pandas(part[columns], preserve_index=False)]
         else:
             assert self.folder is not None
             names = read_columns(self.folder, SCORES, ())
             columns = [c for c in ("dataset", "forecaster", "fold", "origin", metric)
                        if c in names]
-            table = read_arrow(self.folder, SCORES, columns, [("dataset", "=", dataset)])
-        if metric not in table.column_names or table.num_rows == 0:
-            return table.to_pandas()
-        keys = [c for c in ("forecaster", "fold", "origin") if c in table.column_names]
+            tables = iter_arrow(self.folder, SCORES, columns, [("dataset", "=", dataset)])
+        keys = [c for c in ("forecaster", "fold", "origin") if c in columns]
+        if metric not in columns or not keys:
+            return pd.DataFrame(columns=columns)
+        parts = [_fold_sums(t, keys, metric) for t in tables]
+        if not parts or not any(len(p) for p in parts):
+            return pd.DataFrame(columns=columns)
+        sums = pd.concat(parts).groupby(keys, sort=True)[["sum", "count"]].sum().reset_index()
         if "fold" in keys and "origin" in keys:
-            pairs = table.select(["fold", "origin"]).group_by(["fold", "origin"]).aggregate([])
-            one_to_one = (len(pc.unique(pairs["fold"])) == pairs.num_rows
-                          == len(pc.unique(pairs["origin"])))
-            if not one_to_one:
+            pairs = sums[["fold", "origin"]].drop_duplicates()
+            if not (pairs["fold"].nunique() == len(pairs) == pairs["origin"].nunique()):
                 keys.remove("origin")
-        values = table[metric]
-        # NaN (an undefined score) is left out of a mean, as pandas leaves it out
-        values = pc.if_else(pc.is_nan(values), pa.scalar(None, pa.float64()), values)
-        table = table.set_column(table.column_names.index(metric), metric, values)
-        # row groups carry their own dictionaries (one forecaster each): one for the grouping
-        means = table.unify_dictionaries().group_by(keys).aggregate([(metric, "mean")])
-        frame = means.rename_columns([*keys, metric]).to_pandas()
+                sums = sums.groupby(keys, sort=True)[["sum", "count"]].sum().reset_index()
+        with np.errstate(invalid="ignore", divide="ignore"):
+            sums[metric] = sums["sum"].to_numpy(float) / sums["count"].to_numpy(float)
+        frame = sums[[*keys, metric]].copy()
         frame.insert(0, "dataset", dataset)
         return frame
 
@@ -150,6 +154,26 @@ def _history(folder: ResultsFolder) -> list[dict[str, Any]] | None:
     if not folder.exists(HISTORY):
         return None
     return parse_history(folder.read_text(HISTORY), folder.where(HISTORY))
+
+
+def _fold_sums(table: Any, keys: list[str], metric: str) -> pd.DataFrame:
+    """Per ``keys`` of one Arrow table, the sum of ``metric`` and how many values it has
+    (NaN, an undefined score, left out as pandas leaves it out of a mean)."""
+    import pandas as pd
+    import pyarrow as pa
+    import pyarrow.compute as pc
+
+    values = table[metric]
+    values = pc.if_else(pc.is_nan(values), pa.scalar(None, pa.float64()), values)
+    table = table.select(keys).append_column(metric, values)
+    grouped = table.group_by(keys).aggregate([(metric, "sum"), (metric, "count")])
+    frame = grouped.to_pandas().rename(columns={f"{metric}_sum": "sum",
+                                                f"{metric}_count": "count"})
+    frame["sum"] = frame["sum"].fillna(0.0)
+    for k in keys:  # dictionary text (a forecaster's name) as plain text, to group across
+        if isinstance(frame[k].dtype, pd.CategoricalDtype):
+            frame[k] = frame[k].astype(str)
+    return frame
 
 
 def read_results(out_dir: Path, *, forecasts: bool = True, scores: bool = True) -> Results:
