@@ -7,6 +7,7 @@
 
 from __future__ import annotations
 
+import sys
 from dataclasses import dataclass
 from functools import cached_property
 from pathlib import Path
@@ -146,22 +147,40 @@ def run(
     :class:`runner.DataError` before anything is written, and a results folder or cache that
     cannot be written raises :class:`runner.PathError` before anything is computed.
     """
+    from runner.output.writer import Staging
     from runner.output.writer import manifest as build_manifest
-    from runner.output.writer import write_results
 
     plan = config if isinstance(config, Plan) else prepare(config)
     target = output_dir(plan.config, out_dir) if write else None
     _check_paths(plan, target, use_cache)
-    ev = evaluate(plan, use_cache=use_cache, jobs=jobs, quiet=quiet)
-    board = build_leaderboard(ev)
-    if target is not None:
-        from functools import partial
+    if target is None:
+        ev = evaluate(plan, use_cache=use_cache, jobs=jobs, quiet=quiet)
+        _show_notes(ev, quiet)
+        board = build_leaderboard(ev)
+        return RunResult(board, target, build_manifest(ev), ev)
+    from functools import partial
 
-        from runner.report.page import build_report
+    from runner.report.page import build_report
 
+    # forecasts.parquet is written chunk by chunk while the run computes; the rest after
+    with Staging(target) as stage:
+        ev = evaluate(plan, use_cache=use_cache, jobs=jobs, quiet=quiet,
+                      sink=stage.forecast_sink(plan))
+        _show_notes(ev, quiet)
+        board = build_leaderboard(ev)
         # plots whose data did not change are copied from the results being replaced
         finish = partial(build_report, previous=target) if report else None
-        man = write_results(ev, board, target, finish=finish)
-    else:
-        man = build_manifest(ev)
+        man = stage.commit(ev, board, finish)
     return RunResult(board, target, man, ev)
+
+
+def _show_notes(ev: Evaluation, quiet: bool) -> None:
+    """The notes and warnings of the scoring (missing actuals, undefined scores) on stderr,
+    as the run's other notes are shown; nothing when ``quiet``."""
+    if quiet:
+        return
+    for dr in ev.datasets:
+        for note in dr.notes:
+            print(f"castgrid: note: {note}", file=sys.stderr)
+        for w in dr.warnings:
+            print(f"castgrid: warning: {w}", file=sys.stderr)

@@ -258,6 +258,10 @@ class ExecutionConfig(_Strict):
     cache: str | Literal[False] = "results/.cache"
     fit_timeout: float = Field(default=120.0, gt=0, allow_inf_nan=False)
     on_error: Literal["record", "stop"] = "record"
+    #: Series forecast, scored and written at a time: the run's memory grows with this, not
+    #: with the number of series. Results do not depend on it (byte for byte), so it is left
+    #: out of the config's hash (:data:`RESULT_NEUTRAL`).
+    chunk: int = Field(default=10_000, ge=1)
 
     @field_validator("jobs")
     @classmethod
@@ -480,9 +484,18 @@ class ForecasterSpec(BaseModel):
     seasonal_only: bool = False
 
 
+#: Settings left out of the canonical config: they change how a run uses memory, never a
+#: number or a byte it writes, so two runs that differ only there record the same config.
+RESULT_NEUTRAL = (("execution", "chunk"),)
+
+
 def canonical_json(cfg: Config) -> str:
-    """The config as canonical JSON (sorted keys, defaults filled in): the input of its hash."""
-    return json.dumps(cfg.model_dump(mode="json"), sort_keys=True, separators=(",", ":"))
+    """The config as canonical JSON (sorted keys, defaults filled in, the settings of
+    :data:`RESULT_NEUTRAL` left out): the input of its hash."""
+    data = cfg.model_dump(mode="json")
+    for section, key in RESULT_NEUTRAL:
+        data[section].pop(key, None)
+    return json.dumps(data, sort_keys=True, separators=(",", ":"))
 
 
 def config_hash(cfg: Config) -> str:

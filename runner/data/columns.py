@@ -29,12 +29,15 @@ def long_rows(frame: pd.DataFrame, ds: DatasetConfig, src: Source) -> Rows:
     """A long table (one row per series and time) as flat rows, in file order."""
     n = len(frame)
     sid, keys = _series_ids(frame, ds.series_columns, src)
-    t, is_date = _parse_times(frame[ds.time], ds.time, src)
-    v = _numeric(frame[ds.target], ds.target, src)
+    # each column leaves the frame once it is converted: a large file is not held twice
+    for col in ds.series_columns:
+        del frame[col]
+    t, is_date = _parse_times(frame.pop(ds.time), ds.time, src)
+    v = _numeric(frame.pop(ds.target), ds.target, src)
     cov = None
     if ds.covariates:
         cov = np.column_stack([_numeric(frame[c], c, src) for c in ds.covariates])
-    row = np.arange(1, n + 1, dtype=np.int64)
+    row = np.arange(1, n + 1, dtype=np.int32 if n < 2**31 else np.int64)
     return Rows(sid=sid, t=t, v=v, cov=cov, row=row, keys=keys, is_date=is_date)
 
 
@@ -47,12 +50,14 @@ def _series_ids(
         codes, uniques = pd.factorize(frame[col], use_na_sentinel=True)
         names = np.asarray(pd.Index(uniques).astype(str), dtype=object)
         empty = codes < 0
-        if len(names):
-            empty |= names[np.maximum(codes, 0)] == ""
+        blank = np.flatnonzero(names == "")  # looked up among the names, not per row
+        if len(blank):
+            empty |= np.isin(codes, blank)
         if empty.any():
             raise src.fail(f'column "{col}": empty series name (row {int(np.argmax(empty)) + 1})')
         order = np.argsort(names.astype(str), kind="stable")
-        rank = np.empty(len(order), dtype=np.int64)
+        # int32 codes for up to 2**31 series: half the memory of a row's series id
+        rank = np.empty(len(order), dtype=np.int32 if len(order) < 2**31 else np.int64)
         rank[order] = np.arange(len(order))
         codes_per_col.append(rank[codes])
         names_per_col.append(names[order])
@@ -72,7 +77,7 @@ def _series_ids(
             parts = tuple(rows_u[:, j] for j in range(rows_u.shape[1]))
         cols = [names_per_col[j][parts[j]] for j in range(len(columns))]
         keys = ["/".join(str(x) for x in tup) for tup in zip(*cols)]
-    sid = np.asarray(sid, dtype=np.int64).ravel()
+    sid = np.asarray(sid).ravel()
     if len(set(keys)) != len(keys):
         dup = next(k for k, count in Counter(keys).items() if count > 1)
         raise src.fail(f'series "{dup}": two different series get this name; avoid "/" in keys')

@@ -11,6 +11,8 @@ import csv
 import gzip
 import io
 import re
+from collections.abc import Iterator
+from contextlib import contextmanager
 from pathlib import Path
 from typing import Any
 
@@ -46,13 +48,19 @@ def read_table(path: Path, ds: DatasetConfig, src: Source) -> pd.DataFrame:
         raise src.fail("file has no columns")
     needed = _needed_columns(ds, columns, src)
     try:
-        if kind == "parquet":
-            import pyarrow.parquet as pq
+        with _returning_memory(kind):
+            if kind == "parquet":
+                import pyarrow.parquet as pq
 
-            table = pq.read_table(path, columns=needed)
-        else:
-            table = _read_csv(path, needed, ds, len(columns), src)
-        frame = _to_frame(table, ds, src)
+                # a column at a time: the Arrow form of one column, not of the whole file,
+                # is held beside the frame being built
+                file = pq.ParquetFile(path)
+                parts = {c: _to_frame([file.read(columns=[c])], ds, src)[c] for c in needed}
+                frame = pd.DataFrame(parts, copy=False)
+                del parts
+            else:
+                read = [_read_csv(path, needed, ds, len(columns), src)]
+                frame = _to_frame(read, ds, src)  # takes the table out of the list
     except DataError:
         raise
     except Exception as exc:  # truncated gzip, damaged parquet, bad encoding
@@ -60,6 +68,38 @@ def read_table(path: Path, ds: DatasetConfig, src: Source) -> pd.DataFrame:
     if len(frame) == 0:
         raise src.fail("no data rows")
     return frame
+
+
+@contextmanager
+def _returning_memory(kind: str) -> Iterator[None]:
+    """Memory a read used goes back to the system when the read is done: Arrow's own pool
+    keeps it for later reads, and a file of a million series would keep gigabytes that the
+    run needs for the rest. A Parquet read allocates through the C library meanwhile (which
+    returns large blocks as they are freed); the CSV reader's many small blocks fare better in
+    Arrow's pool, released at the end (measured with tests/perf/bench_baselines.py)."""
+    import pyarrow as pa
+
+    before = pa.default_memory_pool()
+    if kind == "parquet":
+        pa.set_memory_pool(pa.system_memory_pool())
+    try:
+        yield
+    finally:
+        pa.set_memory_pool(before)
+        before.release_unused()
+        _trim_heap()
+
+
+def _trim_heap() -> None:
+    """Give the C library's free heap memory back to the system (glibc keeps the freed
+    blocks of a read's many row groups otherwise: hundreds of MiB per 100,000 series). A
+    no-op where the C library has no ``malloc_trim``."""
+    import ctypes
+
+    try:
+        ctypes.CDLL(None).malloc_trim(0)
+    except (AttributeError, OSError):
+        pass
 
 
 def _open_text(path: Path) -> io.TextIOBase:
@@ -103,7 +143,9 @@ def _read_csv(path: Path, needed: list[str], ds: DatasetConfig, width: int, src:
             parse_options=pcsv.ParseOptions(newlines_in_values=True),
             convert_options=pcsv.ConvertOptions(
                 include_columns=needed,
-                column_types={c: pa.string() for c in ds.series_columns},
+                # text, dictionary-encoded: each key is held once however many its rows
+                column_types={c: pa.dictionary(pa.int32(), pa.string())
+                              for c in ds.series_columns},
                 null_values=MISSING_TOKENS,
                 # Key columns keep every text ("NA" is a region); other text columns get
                 # their missing tokens nulled in _to_frame.
@@ -174,8 +216,9 @@ def _type_problem(t: Any, role: str) -> str | None:
     return f"expected {expected}, found {found}"
 
 
-def _to_frame(table: Any, ds: DatasetConfig, src: Source) -> pd.DataFrame:
-    """A pyarrow table as a DataFrame the loader's array stages accept, types checked first.
+def _to_frame(read: list[Any], ds: DatasetConfig, src: Source) -> pd.DataFrame:
+    """The pyarrow table in ``read`` (taken out of the list, so that the caller holds no
+    reference to it) as a DataFrame the loader's array stages accept, types checked first.
 
     Dictionary columns are decoded, decimals become floats, dates become datetimes, and the
     missing-value tokens in text columns (other than key columns) become nulls.
@@ -183,14 +226,19 @@ def _to_frame(table: Any, ds: DatasetConfig, src: Source) -> pd.DataFrame:
     import pyarrow as pa
     import pyarrow.compute as pc
 
+    table = read.pop()
     keys = set(ds.series_columns)
     tokens = pa.array(MISSING_TOKENS, type=pa.string())
     arrays = []
     for name, col in zip(table.column_names, table.columns):
-        if pa.types.is_dictionary(col.type):
-            col = col.cast(col.type.value_type)
         role = "series" if name in keys else "time" if name == ds.time else "value"
-        problem = _type_problem(col.type, role)
+        if pa.types.is_dictionary(col.type) and not (
+                role == "series" and pa.types.is_string(col.type.value_type)):
+            col = col.cast(col.type.value_type)
+        # a key column of text stays dictionary-encoded (a pandas Categorical): its names are
+        # held once, not once per row (a million series of 120 rows)
+        problem = _type_problem(col.type.value_type if pa.types.is_dictionary(col.type)
+                                else col.type, role)
         if problem is not None:
             raise src.fail(f'column "{name}": {problem}')
         if pa.types.is_decimal(col.type):
@@ -201,8 +249,12 @@ def _to_frame(table: Any, ds: DatasetConfig, src: Source) -> pd.DataFrame:
             col = pc.if_else(pc.is_in(col, value_set=tokens), pa.scalar(None, pa.string()), col)
         arrays.append(col)
     table = pa.table(arrays, names=table.column_names)
-    # date_as_object=False: dates become datetime64, not Python date objects.
-    return table.to_pandas(date_as_object=False, ignore_metadata=True)
+    del arrays
+    # date_as_object=False: dates become datetime64, not Python date objects. The Arrow
+    # columns are released as they are converted, and not consolidated into one block: for a
+    # large file, the table and the frame are never both held whole.
+    return table.to_pandas(date_as_object=False, ignore_metadata=True, split_blocks=True,
+                           self_destruct=True)
 
 
 def _needed_columns(ds: DatasetConfig, columns: list[str], src: Source) -> list[str]:

@@ -106,8 +106,9 @@ def _fingerprint(
         b = text.encode("utf-8")
         h.update(len(b).to_bytes(8, "little") + b)
     h.update(b"D" if is_date else b"I")
+    # the arrays' own memory is hashed (no bytes copy of a panel's values)
     for arr, dt in ((offsets, "<i8"), (t, "<i8"), (values, "<f8")):
-        h.update(np.ascontiguousarray(arr, dtype=dt).tobytes())
+        h.update(memoryview(np.ascontiguousarray(arr, dtype=dt)).cast("B"))
     if cov is not None:
-        h.update(np.ascontiguousarray(cov, dtype="<f8").tobytes())
+        h.update(memoryview(np.ascontiguousarray(cov, dtype="<f8")).cast("B"))
     return h.hexdigest()

@@ -33,13 +33,16 @@ class Rows:
     def sort(self) -> None:
         """Sort every array by (series, time) and set ``offsets`` (series ``i`` is
         ``offsets[i]:offsets[i + 1]``)."""
-        # One int64 key (series, dense time rank) sorts 3-4x faster than np.lexsort; files
-        # written in order skip the sort altogether.
-        codes, uniques = pd.factorize(self.t)
-        rank = np.empty(len(uniques), dtype=np.int64)
-        rank[np.argsort(uniques)] = np.arange(len(uniques))
-        key = self.sid * len(uniques) + rank[codes]
-        if np.any(key[1:] < key[:-1]):
+        # Files written in order (series, then time) skip the sort altogether; the check needs
+        # no more than two boolean arrays. Otherwise one int64 key (series, dense time rank)
+        # sorts 3-4x faster than np.lexsort.
+        later = self.sid[1:] > self.sid[:-1]
+        later |= (self.sid[1:] == self.sid[:-1]) & (self.t[1:] >= self.t[:-1])
+        if not later.all():
+            codes, uniques = pd.factorize(self.t)
+            rank = np.empty(len(uniques), dtype=np.int64)
+            rank[np.argsort(uniques)] = np.arange(len(uniques))
+            key = self.sid.astype(np.int64) * len(uniques) + rank[codes]
             order = np.argsort(key)
             self.sid, self.t, self.v, self.row = (
                 self.sid[order], self.t[order], self.v[order], self.row[order]

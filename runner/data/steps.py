@@ -91,9 +91,13 @@ def _date_axis(rows: Rows, offset: poff.BaseOffset, src: Source) -> StepAxis:
             start=pd.Timestamp(lo), end=pd.Timestamp(hi), freq=offset, unit="ns"
         ).asi8.astype(np.int64)
         pos = np.searchsorted(grid, rows.t)
-        hit = pos < len(grid)
-        hit[hit] = grid[pos[hit]] == rows.t[hit]
-        misfit = ~hit
+        # a time past the grid's last point finds the sentinel after it, which no time equals;
+        # compared in blocks, so that no gathered copy of every time is made
+        ext = np.append(grid, hi + 1)
+        misfit = np.empty(len(pos), dtype=bool)
+        for start in range(0, len(pos), 1 << 22):
+            part = slice(start, start + (1 << 22))
+            np.not_equal(ext[pos[part]], rows.t[part], out=misfit[part])
         axis = StepAxis(unit=1, grid=grid, pos=pos)
     if misfit.any():
         # Report the misfit that comes first in the file.
@@ -110,12 +114,17 @@ def _require_one_step(
     rows: Rows, axis: StepAxis, same: np.ndarray, counts: np.ndarray, src: Source, what: str
 ) -> None:
     """Reject a series observed at a coarser step than the panel (e.g. every 3rd month)."""
-    d = (axis.pos[1:] - axis.pos[:-1])[same]
     multi = np.flatnonzero(counts > 1)
     if not len(multi):
         return
-    pair_starts = (rows.offsets[:-1] - np.arange(len(counts)))[multi]
-    per_series = np.gcd.reduceat(d, pair_starts)
+    # steps between neighbours, 0 across a series boundary (gcd(x, 0) = x): one array, no
+    # compacted copy; series i's steps start at offsets[i]; int32 when every step fits (half
+    # the memory of a copy of the positions)
+    narrow = int(axis.pos.max()) - int(axis.pos.min()) < 2**31
+    d = np.empty(len(axis.pos) - 1, dtype=np.int32 if narrow else np.int64)
+    np.subtract(axis.pos[1:], axis.pos[:-1], out=d, casting="unsafe")
+    d[~same] = 0
+    per_series = np.gcd.reduceat(d, rows.offsets[:-1][multi])
     coarse = np.flatnonzero(per_series > 1)
     if len(coarse):
         i = int(multi[coarse[0]])

@@ -55,7 +55,14 @@ import numpy as np
 from runner.forecasters.contract import Forecast
 from runner.forecasters.gaps import SliceFill
 from runner.forecasters.intervals import z_values
-from runner.forecasters.slices import CHUNK_ELEMENTS, SliceSummary, chunks, padded, summarise
+from runner.forecasters.slices import (
+    CHUNK_ELEMENTS,
+    SliceSummary,
+    chunks,
+    padded,
+    row_sums,
+    summarise,
+)
 
 
 @dataclass
@@ -86,7 +93,7 @@ class _Baseline:
 
     def forecast_many(
         self,
-        values: np.ndarray,
+        values: np.ndarray | SliceFill,
         starts: np.ndarray,
         ends: np.ndarray,
         horizon: int,
@@ -98,11 +105,12 @@ class _Baseline:
         """Forecast every slice ``values[starts[i]:ends[i]]`` ``horizon`` steps ahead.
 
         ``summary`` (from :func:`~runner.forecasters.slices.summarise` on the same slices)
-        saves recomputing the per-slice statistics.
+        saves recomputing the per-slice statistics; ``values`` may be a
+        :class:`~runner.forecasters.gaps.SliceFill` of them, shared by many calls.
         """
         starts = np.asarray(starts, dtype=np.int64)
         ends = np.asarray(ends, dtype=np.int64)
-        fill = SliceFill(values)
+        fill = values if isinstance(values, SliceFill) else SliceFill(values)
         if summary is None:
             summary = summarise(fill, starts, ends, season)
         n_levels = len(levels)
@@ -301,7 +309,7 @@ def moving_error_sigma(
                 centre = windows.mean(axis=2) if stat == "mean" else np.median(windows, axis=2)
             err = mat[:, k:] - centre
             finite = np.isfinite(err)
-            sse[part] = (np.where(finite, err, 0.0) ** 2).sum(axis=1)
+            sse[part] = row_sums(np.where(finite, err, 0.0) ** 2)  # width-independent
             count[part] = finite.sum(axis=1)
     with np.errstate(invalid="ignore", divide="ignore"):
         sigma = np.sqrt(sse / count)

@@ -42,6 +42,10 @@ class SliceFill:
         self.values = np.asarray(values, dtype=np.float64)
         known = ~np.isnan(self.values)
         self.has_gaps = not bool(known.all())
+        #: observed values before each position (n + 1,), for :meth:`observed`; only with gaps
+        self._known_before: np.ndarray | None = None
+        if self.has_gaps:
+            self._known_before = np.concatenate([[0], np.cumsum(known, dtype=np.int64)])
         if self.has_gaps:
             n = len(self.values)
             pos = np.arange(n, dtype=np.int64)
@@ -49,6 +53,16 @@ class SliceFill:
             self._prev = np.maximum.accumulate(np.where(known, pos, -1))
             after = np.where(known, pos, n)
             self._next = np.minimum.accumulate(after[::-1])[::-1]
+
+    def observed(self, starts: np.ndarray, ends: np.ndarray) -> np.ndarray:
+        """How many values of each slice ``[starts, ends)`` are observed (not missing).
+
+        >>> SliceFill(np.array([1.0, np.nan, 3.0])).observed(np.array([0, 1]), np.array([3, 2]))
+        array([2, 0])
+        """
+        if self._known_before is None:
+            return np.asarray(ends) - np.asarray(starts)
+        return self._known_before[ends] - self._known_before[starts]
 
     def take(self, idx: np.ndarray, starts: np.ndarray | int, ends: np.ndarray | int) -> np.ndarray:
         """Filled values at flat positions ``idx``, each read inside ``[starts, ends)``."""

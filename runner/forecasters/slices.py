@@ -56,6 +56,47 @@ def padded(
     return out
 
 
+def padded_columns(
+    values: np.ndarray | SliceFill, starts: np.ndarray, ends: np.ndarray
+) -> np.ndarray:
+    """:func:`padded` transposed, built contiguous: (longest slice, tasks), column i ends with
+    ``values[ends[i]-1]`` in the last row."""
+    fill = values if isinstance(values, SliceFill) else SliceFill(values)
+    lengths = ends - starts
+    width = int(lengths.max()) if len(lengths) else 0
+    rows = np.arange(-width, 0, dtype=np.int64)
+    idx = rows[:, None] + ends[None, :]
+    valid = idx >= starts[None, :]
+    out = fill.take(np.where(valid, idx, starts[None, :]), starts[None, :], ends[None, :])
+    out[~valid] = np.nan
+    return out
+
+
+def column_sums(cols: np.ndarray) -> np.ndarray:
+    """:func:`row_sums` of a transposed matrix (``cols`` from :func:`padded_columns`): each
+    column summed from the top row down, NaN counted as 0."""
+    out = np.zeros(cols.shape[1])
+    for row in cols:
+        out += np.where(np.isnan(row), 0.0, row)
+    return out
+
+
+def row_sums(mat: np.ndarray) -> np.ndarray:
+    """The sum of each row of a padded matrix, NaN (padding) counted as 0, added from left to
+    right.
+
+    In that order the padding in front of a slice adds exact zeros before its first value, so
+    a slice's sum is the same bits however wide its matrix is (the longest slice among the
+    tasks computed with it, which depends on how the tasks are chunked). ``numpy.sum`` adds in
+    pairs, and where the pairs fall depends on the width.
+
+    >>> row_sums(np.array([[np.nan, 1.0, 2.0], [3.0, 4.0, 5.0]]))
+    array([ 3., 12.])
+    """
+    # column by column over a transposed copy: each addition is one contiguous vector add
+    return column_sums(np.ascontiguousarray(mat.T))
+
+
 @dataclass
 class SliceSummary:
     """Per-slice statistics shared by the baselines, their intervals and the scaled metrics.
@@ -81,29 +122,32 @@ def summarise(
 ) -> SliceSummary:
     """Compute :class:`SliceSummary` for every slice ``values[starts[i]:ends[i]]``.
 
-    Statistics are of the filled slices (see :mod:`runner.forecasters.gaps`).
+    Statistics are of the filled slices (see :mod:`runner.forecasters.gaps`). Pass a
+    :class:`SliceFill` to compute many batches of slices of one array: what it derives from
+    the whole array is then derived once.
     """
     fill = values if isinstance(values, SliceFill) else SliceFill(values)
     n = len(starts)
     fields = {name: np.full(n, np.nan) for name in SliceSummary.__dataclass_fields__}
     fields["length"] = (ends - starts).astype(float)
-    known = np.concatenate([[0], np.cumsum(~np.isnan(fill.values), dtype=np.int64)])
-    fields["observed"] = (known[ends] - known[starts]).astype(float)
+    fields["observed"] = fill.observed(starts, ends).astype(float)
     m = max(int(season), 1)
     for part in chunks(starts, ends):
-        mat = padded(fill, starts[part], ends[part])
+        # one row per position (the slices right-aligned, the last value in the last row):
+        # each sum below is a run of contiguous vector additions, in a fixed order
+        mat = padded_columns(fill, starts[part], ends[part])
         length = fields["length"][part]
         with np.errstate(invalid="ignore", divide="ignore"):
-            mean = np.nansum(mat, axis=1) / length
-            d = np.diff(mat, axis=1)
-            c = np.nansum(d, axis=1) / (length - 1)
-            ds = mat[:, m:] - mat[:, :-m] if mat.shape[1] > m else np.full((len(mat), 0), np.nan)
-            fields["first"][part] = mat[np.arange(len(mat)), mat.shape[1] - length.astype(int)]
-            fields["last"][part] = mat[:, -1]
+            mean = column_sums(mat) / length
+            d = np.diff(mat, axis=0)
+            c = column_sums(d) / (length - 1)
+            ds = mat[m:] - mat[:-m] if len(mat) > m else np.full((0, mat.shape[1]), np.nan)
+            fields["first"][part] = mat[len(mat) - length.astype(int), np.arange(mat.shape[1])]
+            fields["last"][part] = mat[-1]
             fields["mean"][part] = mean
-            fields["mean_sq"][part] = np.nansum((mat - mean[:, None]) ** 2, axis=1)
-            fields["diff_sq"][part] = np.nansum(d**2, axis=1)
-            fields["drift_sq"][part] = np.nansum((d - c[:, None]) ** 2, axis=1)
-            fields["seasonal_abs"][part] = np.nansum(np.abs(ds), axis=1)
-            fields["seasonal_sq"][part] = np.nansum(ds**2, axis=1)
+            fields["mean_sq"][part] = column_sums((mat - mean) ** 2)
+            fields["diff_sq"][part] = column_sums(d**2)
+            fields["drift_sq"][part] = column_sums((d - c) ** 2)
+            fields["seasonal_abs"][part] = column_sums(np.abs(ds))
+            fields["seasonal_sq"][part] = column_sums(ds**2)
     return SliceSummary(**fields)

@@ -64,8 +64,9 @@ class Estimate:
 
 
 def chunk_series(plan: Plan) -> int:
-    """Series per chunk: the whole dataset until chunked processing says otherwise."""
-    return max([dp.panel.n_series for dp in plan.datasets] + [1])
+    """Series per chunk (``execution.chunk``; a dataset of fewer series is one chunk)."""
+    return min(plan.config.execution.chunk,
+               max([dp.panel.n_series for dp in plan.datasets] + [1]))
 
 
 def estimate(plan: Plan) -> Estimate:

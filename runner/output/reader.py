@@ -15,6 +15,7 @@ import io
 import json
 import re
 import subprocess
+from collections.abc import Iterator
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
@@ -256,6 +257,76 @@ def read_columns(folder: ResultsFolder, name: str, required: tuple[str, ...]) ->
     return names
 
 
+def _row_groups(meta: Any, filters: list[tuple[str, str, Any]]) -> list[int]:
+    """The row groups whose min / max statistics allow a row that ``=`` / ``in`` filters keep
+    (pyarrow does not prune row groups on dictionary-encoded columns by itself)."""
+    where = {meta.schema.column(i).name: i for i in range(meta.num_columns)}
+    keep = []
+    for g in range(meta.num_row_groups):
+        possible = True
+        for column, op, value in filters:
+            if column not in where or op not in ("=", "in"):
+                continue
+            stats = meta.row_group(g).column(where[column]).statistics
+            if stats is None or not stats.has_min_max:
+                continue
+            wanted = [value] if op == "=" else list(value)
+            try:
+                possible = any(stats.min <= v <= stats.max for v in wanted)
+            except TypeError:  # statistics of another type than the values: no pruning
+                possible = True
+            if not possible:
+                break
+        if possible:
+            keep.append(g)
+    return keep
+
+
+def read_arrow(folder: ResultsFolder, name: str, columns: list[str] | None,
+               filters: list[tuple[str, str, Any]] | None = None) -> Any:
+    """``columns`` (all when None) of the rows of a Parquet file of the folder that
+    ``filters`` (pyarrow's ``(column, op, value)`` triples) select, as an Arrow table; of a
+    large file only the row groups that can hold such rows are read."""
+    import pyarrow.dataset as ds
+    import pyarrow.parquet as pq
+
+    try:
+        f = pq.ParquetFile(_parquet_source(folder, name))
+        if not filters:
+            return f.read(columns=columns)
+        groups = _row_groups(f.metadata, filters)
+        wanted = None if columns is None else list(dict.fromkeys(
+            columns + [c for c, _, _ in filters if c in f.schema_arrow.names]))
+        table = f.read_row_groups(groups, columns=wanted)
+        table = ds.dataset(table).to_table(filter=pq.filters_to_expression(filters))
+        return table if columns is None else table.select(columns)
+    except DataError:
+        raise
+    except Exception as exc:  # pyarrow raises several types for a damaged file
+        raise DataError(f"{folder.where(name)}: not a readable Parquet file ({exc})") from None
+
+
+def iter_arrow(folder: ResultsFolder, name: str, columns: list[str],
+               filters: list[tuple[str, str, Any]]) -> Iterator[Any]:
+    """:func:`read_arrow` a row group at a time: one Arrow table per row group that can hold
+    selected rows, for summing up a file larger than memory should hold at once."""
+    import pyarrow.dataset as ds
+    import pyarrow.parquet as pq
+
+    try:
+        f = pq.ParquetFile(_parquet_source(folder, name))
+        wanted = list(dict.fromkeys(columns + [c for c, _, _ in filters
+                                               if c in f.schema_arrow.names]))
+        expression = pq.filters_to_expression(filters)
+        for g in _row_groups(f.metadata, filters):
+            table = ds.dataset(f.read_row_group(g, columns=wanted)).to_table(filter=expression)
+            yield table.select(columns)
+    except DataError:
+        raise
+    except Exception as exc:  # pyarrow raises several types for a damaged file
+        raise DataError(f"{folder.where(name)}: not a readable Parquet file ({exc})") from None
+
+
 def read_table(folder: ResultsFolder, name: str, required: tuple[str, ...],
                filters: list[tuple[str, str, Any]] | None = None) -> pd.DataFrame:
     """A CSV or Parquet file of the folder, checked for ``required`` columns; ``filters``
@@ -264,12 +335,16 @@ def read_table(folder: ResultsFolder, name: str, required: tuple[str, ...],
         return _read_csv(folder, name, required)
     import pandas as pd
 
-    try:
-        frame = pd.read_parquet(_parquet_source(folder, name), filters=filters)
-    except DataError:
-        raise
-    except Exception as exc:  # pyarrow raises several types for a damaged file
-        raise DataError(f"{folder.where(name)}: not a readable Parquet file ({exc})") from None
+    if filters:  # the pruning read; its frame has the dtypes pandas.read_parquet gives
+        frame = read_arrow(folder, name, None, filters).to_pandas()
+    else:
+        try:
+            frame = pd.read_parquet(_parquet_source(folder, name))
+        except DataError:
+            raise
+        except Exception as exc:  # pyarrow raises several types for a damaged file
+            raise DataError(f"{folder.where(name)}: not a readable Parquet file ({exc})"
+                            ) from None
     missing = [c for c in required if c not in frame.columns]
     if missing:
         raise DataError(f"{folder.where(name)}: column {missing[0]!r} is missing")

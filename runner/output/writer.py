@@ -17,9 +17,10 @@ import re
 import shutil
 import socket
 import tempfile
-from collections.abc import Callable
+from collections.abc import Callable, Iterator
+from dataclasses import replace
 from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
 import pandas as pd
@@ -32,9 +33,13 @@ from runner.forecasters.registry import identity
 from runner.output.reader import interval_columns
 from runner.output.tables import to_csv_text, to_markdown
 from runner.scoring import metrics as M
+from runner.scoring.chunks import chunk_plan
 from runner.scoring.derived import selection_frame
-from runner.scoring.evaluate import Evaluation
-from runner.windows.plan import DatasetPlan
+from runner.scoring.results import Chunk, Evaluation, ForecasterResult
+from runner.windows.plan import DatasetPlan, Plan
+
+if TYPE_CHECKING:
+    from runner.data.panel import Panel
 
 
 def _dict_array(codes: np.ndarray, labels: list[str]):
@@ -175,71 +180,63 @@ def manifest(ev: Evaluation) -> dict[str, Any]:
     return man
 
 
+def _times(panels: list[Panel], d: int, position: np.ndarray) -> Any:
+    """Times of positions ``position`` of panel ``d`` as an Arrow column, typed for the whole
+    run: timestamps when every dataset has dates, integers when every dataset has integer
+    times, so readers get real times; text (as every other output prints them) when a run
+    mixes both."""
+    import pyarrow as pa
+
+    kinds = {p.times.dtype.kind for p in panels}
+    panel = panels[d]
+    if kinds <= {"M"} or kinds <= {"i"}:
+        dtype = "datetime64[ns]" if kinds == {"M"} else np.int64
+        return pa.array(panel.times[position].astype(dtype, copy=False))
+    return pa.array(panel.format_time(position).astype(str))
+
+
+def _score_blocks(ev: Evaluation, cols: list[str]) -> Iterator[Any]:
+    """scores.parquet, one Arrow table per dataset and forecaster (task order)."""
+    import pyarrow as pa
+
+    panels = [dr.plan.panel for dr in ev.datasets]
+    for d, dr in enumerate(ev.datasets):
+        dp = dr.plan
+        n = dp.n_tasks
+        keys = _series_labels(dp.panel)
+        series = _dict_array(dp.series, keys)
+        fold = pa.array(dp.fold.astype(np.int32))
+        # the origin is the time of the fold's last training observation
+        origin = _times(panels, d, dp.ends - 1)
+        for r in dr.results:
+            data = {
+                "dataset": _dict_array(np.zeros(n, dtype=np.int32), [dp.panel.name]),
+                "series": series,
+                "forecaster": _dict_array(np.zeros(n, dtype=np.int32), [r.spec.name]),
+                "fold": fold,
+                "origin": origin,
+            }
+            for c in cols:
+                data[c] = pa.array(np.asarray(r.scores[c].per_task, dtype=float))
+            yield pa.table(data)
+
+
+def _series_labels(panel: Panel) -> list[str]:
+    return [str(k) for k in panel.keys]
+
+
 def scores_table(ev: Evaluation, cols: list[str]) -> Any:
     """scores.parquet as an Arrow table: one row per dataset, series, forecaster and fold.
 
     ``fold`` numbers the dataset's origins from the oldest; ``origin`` is the time of the
-    fold's last training observation (see :func:`time_array`).
+    fold's last training observation.
     """
     import pyarrow as pa
 
-    names = [s.name for s in ev.plan.forecasters]
-    ds_names = [dr.plan.panel.name for dr in ev.datasets]
-    keys: list[str] = []
-    parts: dict[str, list[np.ndarray]] = {k: [] for k in ("d", "s", "f", "fold", "origin")}
-    metric_parts: dict[str, list[np.ndarray]] = {c: [] for c in cols}
-    for d, dr in enumerate(ev.datasets):
-        dp, panel = dr.plan, dr.plan.panel
-        offset = len(keys)
-        keys.extend(panel.keys)
-        for r in dr.results:
-            n = dp.n_tasks
-            parts["d"].append(np.full(n, d))
-            parts["s"].append(dp.series + offset)
-            parts["f"].append(np.full(n, names.index(r.spec.name)))
-            parts["fold"].append(dp.fold)
-            parts["origin"].append(dp.ends - 1)
-            for c in cols:
-                metric_parts[c].append(r.scores[c].per_task)
-    cat = {k: np.concatenate(v) if v else np.empty(0) for k, v in parts.items()}
-    data = {
-        "dataset": _dict_array(cat["d"], ds_names),
-        "series": _dict_array(cat["s"], keys),
-        "forecaster": _dict_array(cat["f"], names),
-        "fold": pa.array(cat["fold"].astype(np.int32)),
-        "origin": time_array(ev, cat["d"], cat["origin"]),
-    }
-    for c in cols:
-        data[c] = pa.array(np.concatenate(metric_parts[c]).astype(float))
-    return pa.table(data)
-
-
-def time_array(ev: Evaluation, dataset: np.ndarray, position: np.ndarray) -> Any:
-    """Times of rows (dataset index, flat position in its panel) as an Arrow column.
-
-    Timestamps when every dataset has dates, integers when every dataset has integer times,
-    so readers get real times; text (as every other output prints them) when a run mixes both.
-    """
-    import pyarrow as pa
-
-    panels = [dr.plan.panel for dr in ev.datasets]
-    kinds = {p.times.dtype.kind for p in panels}
-    if len(panels) == 1 and kinds <= {"M", "i"}:  # one dataset: one gather, no masks
-        times = panels[0].times[position]
-        return pa.array(times.astype("datetime64[ns]" if kinds == {"M"} else np.int64,
-                                     copy=False))
-    if kinds <= {"M"} or kinds <= {"i"}:
-        dtype = "datetime64[ns]" if kinds == {"M"} else np.int64
-        out = np.empty(len(position), dtype=dtype)
-        for d, panel in enumerate(panels):
-            rows = dataset == d
-            out[rows] = panel.times[position[rows]]
-        return pa.array(out)
-    text = np.empty(len(position), dtype=object)
-    for d, panel in enumerate(panels):
-        rows = dataset == d
-        text[rows] = panel.format_time(position[rows])
-    return pa.array(text.astype(str))
+    blocks = list(_score_blocks(ev, cols))
+    if not blocks:
+        return pa.table({c: pa.array([], type=pa.float64()) for c in cols})
+    return pa.concat_tables(blocks)
 
 
 #: Parquet compression of every table written: zstd packs the forecasts' repeated times,
@@ -260,60 +257,166 @@ def kept_forecasts(mode: str, spec_role: str, name: str, reference: str) -> bool
     return False
 
 
-def _forecasts_table(ev: Evaluation):
+def _forecast_blocks(plan: Plan, chunk: Chunk) -> Iterator[Any]:
+    """forecasts.parquet rows of one chunk, one Arrow table per kept forecaster: per task
+    (series order) its ``horizon`` steps."""
     import pyarrow as pa
 
-    cfg = ev.plan.config
+    cfg = plan.config
     h = cfg.horizon
-    levels = cfg.intervals
-    names = [s.name for s in ev.plan.forecasters]
-    ds_names = [dr.plan.panel.name for dr in ev.datasets]
-    keys: list[str] = []
-    cols: dict[str, list[np.ndarray]] = {
-        k: [] for k in ("d", "s", "f", "fold", "origin", "step", "t")
-    }
-    values: dict[str, list[np.ndarray]] = {"actual": [], "forecast": []}
-    bounds = [interval_columns(lv) for lv in levels]
-    for lo, hi in bounds:
-        values[lo] = []
-        values[hi] = []
+    dp = chunk.plan
+    panels = [x.panel for x in plan.datasets]
+    n = dp.n_tasks
     steps = np.arange(h)
-    for d, dr in enumerate(ev.datasets):
-        dp, panel = dr.plan, dr.plan.panel
-        s_offset = len(keys)
-        keys.extend(panel.keys)
-        t_index = (dp.test_starts[:, None] + steps[None, :]).ravel()
-        # the origin is the time of the last training observation
-        origin_index = np.repeat(dp.ends - 1, h)
-        for r in dr.results:
-            if not kept_forecasts(cfg.output.forecasts, r.spec.role, r.spec.name, dp.reference):
-                continue
-            n = dp.n_tasks
-            cols["d"].append(np.full(n * h, d))
-            cols["s"].append(np.repeat(dp.series + s_offset, h))
-            cols["f"].append(np.full(n * h, names.index(r.spec.name)))
-            cols["fold"].append(np.repeat(dp.fold, h))
-            cols["origin"].append(origin_index)
-            cols["step"].append(np.tile(steps + 1, n))
-            cols["t"].append(t_index)
-            values["actual"].append(dr.actual.ravel())
-            values["forecast"].append(r.point.ravel())
-            for i, (lo, hi) in enumerate(bounds):
-                values[lo].append(r.lower[i].ravel())
-                values[hi].append(r.upper[i].ravel())
-    cat = {k: np.concatenate(v) for k, v in cols.items()}
-    data = {
-        "dataset": _dict_array(cat["d"], ds_names),
-        "series": _dict_array(cat["s"], keys),
-        "forecaster": _dict_array(cat["f"], names),
-        "fold": pa.array(cat["fold"].astype(np.int32)),
-        "origin": time_array(ev, cat["d"], cat["origin"]),
-        "step": pa.array(cat["step"].astype(np.int32)),
-        "time": time_array(ev, cat["d"], cat["t"]),
-    }
-    for k, v in values.items():
-        data[k] = pa.array(np.concatenate(v).astype(float))
-    return pa.table(data)
+    # the chunk's own series form the dictionary of its row groups
+    present, local = np.unique(dp.series, return_inverse=True)
+    labels = [str(dp.panel.keys[i]) for i in present]
+    series = _dict_array(np.repeat(local, h), labels)
+    fold = pa.array(np.repeat(dp.fold, h).astype(np.int32))
+    origin = _times(panels, chunk.dataset, np.repeat(dp.ends - 1, h))
+    step = pa.array(np.tile(steps + 1, n).astype(np.int32))
+    time = _times(panels, chunk.dataset, (dp.test_starts[:, None] + steps[None, :]).ravel())
+    actual = pa.array(chunk.actual.ravel())
+    bounds = [interval_columns(lv) for lv in cfg.intervals]
+    for r in chunk.results:
+        if not kept_forecasts(cfg.output.forecasts, r.spec.role, r.spec.name, dp.reference):
+            continue
+        assert r.point is not None and r.lower is not None and r.upper is not None
+        data = {
+            "dataset": _dict_array(np.zeros(n * h, dtype=np.int32), [dp.panel.name]),
+            "series": series,
+            "forecaster": _dict_array(np.zeros(n * h, dtype=np.int32), [r.spec.name]),
+            "fold": fold,
+            "origin": origin,
+            "step": step,
+            "time": time,
+            "actual": actual,
+            "forecast": pa.array(r.point.ravel().astype(float, copy=False)),
+        }
+        for i, (lo, hi) in enumerate(bounds):
+            data[lo] = pa.array(r.lower[i].ravel().astype(float, copy=False))
+            data[hi] = pa.array(r.upper[i].ravel().astype(float, copy=False))
+        yield pa.table(data)
+
+
+class _TableFile:
+    """A Parquet file written a table (a row group or more) at a time."""
+
+    def __init__(self, path: Path) -> None:
+        self.path = path
+        self.writer: Any = None
+
+    def write(self, table: Any) -> None:
+        import pyarrow.parquet as pq
+
+        if self.writer is None:
+            self.writer = pq.ParquetWriter(self.path, table.schema, compression=COMPRESSION,
+                                           use_dictionary=DICTIONARY_COLUMNS)
+        self.writer.write_table(table)
+
+    def close(self, empty: Any = None) -> None:
+        """Finish the file; ``empty`` (a table without rows) gives a file nothing was written
+        to its columns."""
+        if self.writer is None and empty is not None:
+            self.write(empty)
+        if self.writer is not None:
+            self.writer.close()
+            self.writer = None
+
+
+#: Series per row group of forecasts.parquet (one row group per block of series and
+#: forecaster). A property of the file, not of the run's chunks: the file is the same bytes
+#: whatever ``execution.chunk`` is, and a reader that wants a few series reads a few groups.
+GROUP_SERIES = 10_000
+
+
+class ForecastSink:
+    """Writes forecasts.parquet as :func:`runner.scoring.evaluate.evaluate` hands the chunks
+    over: the rows of each block of :data:`GROUP_SERIES` series (by series number) are written
+    as soon as the block is complete, so that no more than a chunk and a block of forecasts
+    are ever in memory."""
+
+    def __init__(self, plan: Plan, path: Path) -> None:
+        self.plan = plan
+        self.file = _TableFile(path)
+        self.pending: list[Chunk] = []  # the parts of the block being gathered
+        self.block: tuple[int, int] | None = None  # its (dataset, block number)
+
+    def __call__(self, chunk: Chunk) -> None:
+        n = chunk.plan.n_tasks
+        if n == 0:
+            return
+        blocks = chunk.plan.series // GROUP_SERIES
+        bounds = [0, *(np.flatnonzero(np.diff(blocks)) + 1).tolist(), n]
+        for lo, hi in zip(bounds[:-1], bounds[1:]):
+            key = (chunk.dataset, int(blocks[lo]))
+            if key != self.block:
+                self._flush()
+                self.block = key
+            self.pending.append(_chunk_part(chunk, lo, hi))
+
+    def close(self) -> None:
+        """Write the last block and finish the file (its columns even without a row)."""
+        self._flush()
+        empty = None
+        if self.file.writer is None:  # no row at all: the columns still say what there is
+            empty = _empty_forecasts(self.plan)
+        self.file.close(empty)
+
+    def _flush(self) -> None:
+        if self.pending:
+            for table in _forecast_blocks(self.plan, _joined(self.pending)):
+                self.file.write(table)
+        self.pending = []
+
+
+def _chunk_part(chunk: Chunk, lo: int, hi: int) -> Chunk:
+    """Tasks ``lo:hi`` of a chunk, forecasts only (views of its arrays)."""
+    if lo == 0 and hi == chunk.plan.n_tasks:
+        return chunk
+    tasks = slice(lo, hi)
+    results = [ForecasterResult(r.spec, r.point[tasks], r.lower[:, tasks], r.upper[:, tasks],
+                                [], [])  # type: ignore[index]
+               for r in chunk.results]
+    return Chunk(chunk.dataset, chunk_plan(chunk.plan, tasks),
+                 slice(chunk.tasks.start + lo, chunk.tasks.start + hi), chunk.actual[tasks],
+                 results, chunk.summary)
+
+
+def _joined(parts: list[Chunk]) -> Chunk:
+    """Consecutive parts of one dataset's tasks as one chunk (forecasts only)."""
+    if len(parts) == 1:
+        return parts[0]
+    first = parts[0]
+
+    def cat(get: Callable[[Any], np.ndarray], axis: int = 0) -> np.ndarray:
+        return np.concatenate([get(p) for p in parts], axis=axis)
+
+    plan = replace(first.plan, **{k: cat(lambda p, k=k: getattr(p.plan, k)) for k in
+                                  ("series", "fold", "origin", "starts", "ends", "test_starts")})
+    results = [
+        ForecasterResult(r.spec, cat(lambda p, i=i: p.results[i].point),
+                         cat(lambda p, i=i: p.results[i].lower, 1),
+                         cat(lambda p, i=i: p.results[i].upper, 1), [], [])
+        for i, r in enumerate(first.results)
+    ]
+    tasks = slice(first.tasks.start, parts[-1].tasks.stop)
+    return Chunk(first.dataset, plan, tasks, cat(lambda p: p.actual), results, first.summary)
+
+
+def _empty_forecasts(plan: Plan) -> Any:
+    import pyarrow as pa
+
+    text = pa.dictionary(pa.int32(), pa.string())
+    kinds = {dp.panel.times.dtype.kind for dp in plan.datasets}
+    when = (pa.timestamp("ns") if kinds <= {"M"} and kinds else
+            pa.int64() if kinds <= {"i"} and kinds else pa.string())
+    fields = [("dataset", text), ("series", text), ("forecaster", text), ("fold", pa.int32()),
+              ("origin", when), ("step", pa.int32()), ("time", when), ("actual", pa.float64()),
+              ("forecast", pa.float64())]
+    for lv in plan.config.intervals:
+        fields += [(c, pa.float64()) for c in interval_columns(lv)]
+    return pa.table({name: pa.array([], type=t) for name, t in fields})
 
 
 def _horizon_frame(ev: Evaluation, cols: list[str]) -> pd.DataFrame:
@@ -334,13 +437,14 @@ def _failures_frame(ev: Evaluation) -> pd.DataFrame:
     rows = []
     for dr in ev.datasets:
         dp = dr.plan
-        origins = dp.panel.format_time(dp.ends - 1)
         for r in dr.results:
-            for t in np.flatnonzero(r.failed):
+            failed = np.flatnonzero(r.failed)
+            origins = dp.panel.format_time(dp.ends[failed] - 1)  # of the failed tasks only
+            for t, origin in zip(failed, origins):
                 rows.append({
                     "dataset": dp.panel.name, "series": dp.panel.keys[dp.series[t]],
                     "forecaster": r.spec.name, "fold": int(dp.fold[t]),
-                    "origin": str(origins[t]), "reason": r.reason[t], "message": r.message[t],
+                    "origin": str(origin), "reason": r.reason[t], "message": r.message[t],
                 })
     return pd.DataFrame(rows, columns=["dataset", "series", "forecaster", "fold", "origin",
                                        "reason", "message"])
@@ -351,29 +455,59 @@ def _csv(frame: pd.DataFrame, path: Path) -> None:
     path.write_text(text, encoding="utf-8")
 
 
-def write_results(
-    ev: Evaluation,
-    board: pd.DataFrame,
-    out_dir: Path,
-    *,
-    finish: Callable[[Path], object] | None = None,
-) -> dict[str, Any]:
-    """Write every file of a run into ``out_dir`` at once; returns the manifest.
+class Staging:
+    """The temporary folder a run's results are written into, swapped in as a whole at the end
+    (:meth:`commit`), or removed if anything fails (use it as a context manager).
 
-    ``finish`` is called with the temporary folder once every results file is in it and before
-    it is swapped in (the pipeline builds the report there), so that it is part of the same
-    all-or-nothing write.
+    forecasts.parquet is written into it while the run computes (:meth:`forecast_sink`); the
+    other files once the leaderboard is known.
     """
-    import pyarrow.parquet as pq
 
-    cfg = ev.plan.config
-    cols = M.columns(cfg.metrics, tuple(cfg.intervals))
-    out_dir = Path(out_dir)
-    out_dir.parent.mkdir(parents=True, exist_ok=True)
-    sweep_leftovers(out_dir)
-    tmp = Path(tempfile.mkdtemp(prefix=f".{out_dir.name}.tmp-{_owner()}-", dir=out_dir.parent))
-    os.chmod(tmp, 0o755)  # mkdtemp makes it private; a results folder is for everyone to read
-    try:
+    def __init__(self, out_dir: str | Path) -> None:
+        self.out_dir = Path(out_dir)
+        self.out_dir.parent.mkdir(parents=True, exist_ok=True)
+        sweep_leftovers(self.out_dir)
+        self.tmp = Path(tempfile.mkdtemp(prefix=f".{self.out_dir.name}.tmp-{_owner()}-",
+                                         dir=self.out_dir.parent))
+        os.chmod(self.tmp, 0o755)  # mkdtemp makes it private; results are for everyone to read
+        self.sink: ForecastSink | None = None
+
+    def __enter__(self) -> Staging:
+        return self
+
+    def __exit__(self, kind: object, *exc: object) -> None:
+        if kind is not None:
+            self.abort()
+
+    def abort(self) -> None:
+        """Remove the temporary folder; the previous results stay as they were."""
+        if self.sink is not None:
+            try:
+                self.sink.close()
+            except Exception:  # the folder goes anyway
+                pass
+        shutil.rmtree(self.tmp, ignore_errors=True)
+
+    def forecast_sink(self, plan: Plan) -> ForecastSink | None:
+        """Where the run's chunks go: forecasts.parquet, or nowhere with ``output.forecasts:
+        none``."""
+        if plan.config.output.forecasts == "none":
+            return None
+        self.sink = ForecastSink(plan, self.tmp / "forecasts.parquet")
+        return self.sink
+
+    def commit(
+        self, ev: Evaluation, board: pd.DataFrame,
+        finish: Callable[[Path], object] | None = None,
+    ) -> dict[str, Any]:
+        """Write every other file, call ``finish`` with the folder (the pipeline builds the
+        report there, so that it is part of the same all-or-nothing write), swap it in;
+        returns the manifest."""
+        cfg = ev.plan.config
+        cols = M.columns(cfg.metrics, tuple(cfg.intervals))
+        tmp = self.tmp
+        if self.sink is not None:
+            self.sink.close()
         man = manifest(ev)
         (tmp / "leaderboard.csv").write_text(to_csv_text(board), encoding="utf-8")
         (tmp / "leaderboard.md").write_text(
@@ -385,17 +519,16 @@ def write_results(
         from runner.output.segments import write_segment_files
 
         write_segment_files(ev, tmp, board)
-        pq.write_table(scores_table(ev, cols), tmp / "scores.parquet", compression=COMPRESSION,
-                       use_dictionary=DICTIONARY_COLUMNS)
-        if cfg.output.forecasts != "none":
-            pq.write_table(_forecasts_table(ev), tmp / "forecasts.parquet",
-                           compression=COMPRESSION, use_dictionary=DICTIONARY_COLUMNS)
+        scores = _TableFile(tmp / "scores.parquet")
+        for table in _score_blocks(ev, cols):  # a row group per dataset and forecaster
+            scores.write(table)
+        scores.close(scores_table(ev, cols) if scores.writer is None else None)
         _csv(_horizon_frame(ev, cols), tmp / "horizon.csv")
         _csv(_failures_frame(ev), tmp / "failures.csv")
         selection = selection_frame(ev)
         if selection is not None:  # only runs with a best_so_far candidate have one
             _csv(selection, tmp / "selection.csv")
-        old_history = out_dir / "history.jsonl"
+        old_history = self.out_dir / "history.jsonl"
         if old_history.exists():
             shutil.copy2(old_history, tmp / "history.jsonl")
         from runner.output.history import append_history
@@ -403,11 +536,29 @@ def write_results(
         append_history(tmp, man, board)
         if finish is not None:
             finish(tmp)
-        _swap_in(tmp, out_dir)
-    except BaseException:
-        shutil.rmtree(tmp, ignore_errors=True)
-        raise
-    return man
+        _swap_in(tmp, self.out_dir)
+        return man
+
+
+def write_results(
+    ev: Evaluation,
+    board: pd.DataFrame,
+    out_dir: Path,
+    *,
+    finish: Callable[[Path], object] | None = None,
+) -> dict[str, Any]:
+    """Write every file of a run kept in memory (every dataset one chunk) into ``out_dir`` at
+    once; returns the manifest. ``finish`` as in :meth:`Staging.commit`."""
+    with Staging(out_dir) as stage:
+        sink = stage.forecast_sink(ev.plan)
+        if sink is not None:
+            for d, dr in enumerate(ev.datasets):
+                if dr.actual is None:
+                    raise ValueError("the evaluation kept no forecasts (it ran in chunks); "
+                                     "write its results while it runs (Staging)")
+                sink(Chunk(d, dr.plan, slice(0, dr.plan.n_tasks), dr.actual, dr.results,
+                           dr.summary))  # type: ignore[arg-type]
+        return stage.commit(ev, board, finish)
 
 
 def _swap_in(tmp: Path, out_dir: Path) -> None:

@@ -24,7 +24,7 @@ import os
 import tempfile
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 from runner.output.numbers import column_decimals, format_number, format_percent
 from runner.output.reader import FORECASTS, HISTORY, HORIZON, SCORES
@@ -47,6 +47,9 @@ from runner.report.tables import (
     metrics_html,
     segment_skill_html,
 )
+
+if TYPE_CHECKING:  # the command line imports this module at start; pandas loads when used
+    import pandas as pd
 
 REPORT = "report.html"
 PLOTS = "plots"
@@ -199,10 +202,10 @@ def _dataset_plots(view: DatasetView, results: Results) -> list[Plot]:
     p = Plot(f"{d}-folds.png", f"{m} fold by fold",
              f"Each point is one fold's {m}, the mean over its series; the leaderboard's mean "
              f"and sd are over these points. {shown}".strip())
-    if results.scores is None:
+    if not results.has_scores:
         p.missing = f"{SCORES} is not in the results folder"
     else:
-        p.take(sketch_folds(view, results.scores))
+        p.take(sketch_folds(view, results.fold_scores(d, m)))
         p.missing = f"no {m} scores for this dataset in {SCORES}"
     out.append(p)
 
@@ -216,10 +219,10 @@ def _dataset_plots(view: DatasetView, results: Results) -> list[Plot]:
         # only the rows drawn are read: the best candidate's best and worst series
         best = view.best()
         drawn = [n for n in (best, view.reference) if n is not None]
-        picks = (series_extremes(view, results.scores, best)
-                 if best is not None and results.scores is not None else None)
+        scores = _best_scores(view, results)
+        picks = series_extremes(view, scores, best) if scores is not None else None
         rows = results.forecast_rows(d, picks, drawn)
-        sketch, note = sketch_forecasts(view, rows, results.scores)
+        sketch, note = sketch_forecasts(view, rows, scores)
         p.take(sketch)
         p.caption = (f"Best and worst series (by mean {m}) of the best candidate: {note}. "
                      "The dashed black line is the reference's forecast.")
@@ -249,6 +252,15 @@ def _dataset_plots(view: DatasetView, results: Results) -> list[Plot]:
     return out
 
 
+def _best_scores(view: DatasetView, results: Results) -> pd.DataFrame | None:
+    """The rank metric of every task of the best candidate (what picks the series to draw);
+    None without scores."""
+    best = view.best()
+    if best is None or not results.has_scores:
+        return None
+    return results.series_scores(view.dataset, best, view.rank_by)
+
+
 def _segment_sections(view: DatasetView, results: Results) -> tuple[str, list[Plot]]:
     """Per segment attribute: the skill of every forecaster per segment as one shaded table,
     and the forecasts of the best and worst series of each segment (empty without segments)."""
@@ -271,6 +283,7 @@ def _segment_sections(view: DatasetView, results: Results) -> tuple[str, list[Pl
         rows = members[members["dataset"].astype(str) == view.dataset]
         best = view.best()
         drawn_names = [n for n in (best, view.reference) if n is not None]
+        scores = _best_scores(view, results)
         for value in frame.columns:
             series = list(rows.loc[rows[attribute].astype(str) == str(value), "series"]
                           .astype(str))
@@ -278,10 +291,10 @@ def _segment_sections(view: DatasetView, results: Results) -> tuple[str, list[Pl
             p = Plot(f"{view.dataset}-forecasts-{slug}.png",
                      f"forecasts on {attribute} {value}", "")
             # only the rows drawn are read: the best and worst series of this segment
-            picks = (series_extremes(view, results.scores, best, series)
-                     if best is not None and results.scores is not None else series)
+            picks = (series_extremes(view, scores, best, series)
+                     if scores is not None and best is not None else series)
             part = results.forecast_rows(view.dataset, picks, drawn_names)
-            sketch, note = sketch_forecasts(view, part, results.scores, series=series,
+            sketch, note = sketch_forecasts(view, part, scores, series=series,
                                             title=f"{attribute} {value}")
             p.take(sketch)
             p.caption = f"Best and worst series of this segment (by mean {view.rank_by}): {note}."
@@ -311,7 +324,7 @@ def build_report(out_dir: Path, previous: Path | None = None) -> Path:
     is missing or any file present is damaged; nothing is written in that case.
     """
     out_dir = Path(out_dir)
-    results = read_results(out_dir, forecasts=False)
+    results = read_results(out_dir, forecasts=False, scores=False)
     per_view = []
     for view in dataset_views(results):
         segment_html, segment_plots = _segment_sections(view, results)

@@ -24,6 +24,8 @@ from runner.output.reader import (
     HORIZON,
     SCORES,
     ResultsFolder,
+    iter_arrow,
+    read_arrow,
     read_columns,
     read_leaderboard,
     read_manifest,
@@ -42,9 +44,11 @@ if TYPE_CHECKING:  # the command line imports this module at start; pandas loads
 class Results:
     """The files of one results folder that the report draws from (None: file absent).
 
-    ``forecasts`` is None too when it was left unread (``read_results(..., forecasts=False)``):
-    ``has_forecasts`` says whether the folder has the file, and :meth:`forecast_rows` reads
-    the rows a plot needs.
+    ``forecasts`` and ``scores`` are None too when they were left unread
+    (``read_results(..., forecasts=False, scores=False)``): ``has_forecasts`` and
+    ``has_scores`` say whether the folder has the files, and :meth:`forecast_rows`,
+    :meth:`fold_scores` and :meth:`series_scores` read what a plot needs (the files of a run of
+    a million series are far larger than what the plots draw).
     """
 
     manifest: dict[str, Any]
@@ -60,6 +64,65 @@ class Results:
     series_segments: pd.DataFrame | None = None
     folder: ResultsFolder | None = None
     has_forecasts: bool = False
+    has_scores: bool = False
+
+    def fold_scores(self, dataset: str, metric: str) -> pd.DataFrame:
+        """``metric`` of ``dataset`` averaged per forecaster and fold (over the fold's
+        series, missing scores left out): columns dataset, forecaster, fold and, when it
+        names the folds one to one, origin (see :func:`fold_key`), then ``metric``.
+
+        Read from the file a row group at a time, summed per forecaster, fold and origin:
+        the scores of a million series are not held at once."""
+        import numpy as np
+        import pandas as pd
+        import pyarrow as pa
+
+        if self.scores is not None:
+            part = self.scores[self.scores["dataset"] == dataset]
+            columns = [c for c in ("dataset", "forecaster", "fold", "origin", metric)
+                       if c in part.columns]
+            tables: Any = [pa.Table.from_pandas(part[columns], preserve_index=False)]
+        else:
+            assert self.folder is not None
+            names = read_columns(self.folder, SCORES, ())
+            columns = [c for c in ("dataset", "forecaster", "fold", "origin", metric)
+                       if c in names]
+            tables = iter_arrow(self.folder, SCORES, columns, [("dataset", "=", dataset)])
+        keys = [c for c in ("forecaster", "fold", "origin") if c in columns]
+        if metric not in columns or not keys:
+            return pd.DataFrame(columns=columns)
+        parts = [_fold_sums(t, keys, metric) for t in tables]
+        if not parts or not any(len(p) for p in parts):
+            return pd.DataFrame(columns=columns)
+        sums = pd.concat(parts).groupby(keys, sort=True)[["sum", "count"]].sum().reset_index()
+        if "fold" in keys and "origin" in keys:
+            pairs = sums[["fold", "origin"]].drop_duplicates()
+            if not (pairs["fold"].nunique() == len(pairs) == pairs["origin"].nunique()):
+                keys.remove("origin")
+                sums = sums.groupby(keys, sort=True)[["sum", "count"]].sum().reset_index()
+        with np.errstate(invalid="ignore", divide="ignore"):
+            sums[metric] = sums["sum"].to_numpy(float) / sums["count"].to_numpy(float)
+        frame = sums[[*keys, metric]].copy()
+        frame.insert(0, "dataset", dataset)
+        return frame
+
+    def series_scores(self, dataset: str, forecaster: str, metric: str,
+                      series: list[str] | None = None) -> pd.DataFrame:
+        """``metric`` of every task of ``forecaster`` on ``dataset`` (of ``series`` only when
+        given): columns dataset, forecaster, series, ``metric``."""
+        if self.scores is not None:
+            frame = self.scores
+            keep = (frame["dataset"] == dataset) & (frame["forecaster"] == forecaster)
+            if series is not None:
+                keep &= frame["series"].astype(str).isin([str(s) for s in series])
+            return frame[keep]
+        assert self.folder is not None
+        filters = [("dataset", "=", dataset), ("forecaster", "=", forecaster)]
+        if series is not None:
+            filters.append(("series", "in", [str(s) for s in series]))
+        names = read_columns(self.folder, SCORES, ())
+        columns = [c for c in ("dataset", "forecaster", "series", metric) if c in names]
+        return read_arrow(self.folder, SCORES, columns, filters).to_pandas()
 
     def forecast_rows(self, dataset: str, series: list[str] | None,
                       forecasters: list[str]) -> pd.DataFrame:
@@ -93,18 +156,46 @@ def _history(folder: ResultsFolder) -> list[dict[str, Any]] | None:
     return parse_history(folder.read_text(HISTORY), folder.where(HISTORY))
 
 
-def read_results(out_dir: Path, *, forecasts: bool = True) -> Results:
+def _fold_sums(table: Any, keys: list[str], metric: str) -> pd.DataFrame:
+    """Per ``keys`` of one Arrow table, the sum of ``metric`` and how many values it has
+    (NaN, an undefined score, left out as pandas leaves it out of a mean)."""
+    import pandas as pd
+    import pyarrow as pa
+    import pyarrow.compute as pc
+
+    values = table[metric]
+    values = pc.if_else(pc.is_nan(values), pa.scalar(None, pa.float64()), values)
+    table = table.select(keys).append_column(metric, values)
+    grouped = table.group_by(keys).aggregate([(metric, "sum"), (metric, "count")])
+    frame = grouped.to_pandas().rename(columns={f"{metric}_sum": "sum",
+                                                f"{metric}_count": "count"})
+    frame["sum"] = frame["sum"].fillna(0.0)
+    for k in keys:  # dictionary text (a forecaster's name) as plain text, to group across
+        if isinstance(frame[k].dtype, pd.CategoricalDtype):
+            frame[k] = frame[k].astype(str)
+    return frame
+
+
+def read_results(out_dir: Path, *, forecasts: bool = True, scores: bool = True) -> Results:
     """Every file the report uses; DataError when a required one is missing or any is damaged.
 
-    ``forecasts=False`` leaves forecasts.parquet unread but for its columns (checked), to be
-    read in parts by :meth:`Results.forecast_rows`.
+    ``forecasts=False`` / ``scores=False`` leave forecasts.parquet / scores.parquet unread but
+    for their columns (checked), to be read in parts by :meth:`Results.forecast_rows`,
+    :meth:`Results.fold_scores` and :meth:`Results.series_scores`.
     """
     folder = ResultsFolder.open(out_dir)
     manifest = read_manifest(folder)
     rank_by = manifest["rank_by"]
     base = ("dataset", "forecaster")
     board = read_leaderboard(folder, rank_by)
-    scores = _optional(folder, SCORES, base + ("series",))
+    has_scores = folder.exists(SCORES)
+    if scores:
+        score_frame = _optional(folder, SCORES, base + ("series",))
+        score_columns = None if score_frame is None else list(score_frame.columns)
+    else:
+        score_frame = None
+        score_columns = (read_columns(folder, SCORES, base + ("series",)) if has_scores
+                         else None)
     wanted = base + ("series", "step", "time", "actual", "forecast")
     has_forecasts = folder.exists(FORECASTS)
     if forecasts:
@@ -113,8 +204,7 @@ def read_results(out_dir: Path, *, forecasts: bool = True) -> Results:
     else:
         frame = None
         forecast_columns = read_columns(folder, FORECASTS, wanted) if has_forecasts else None
-    for name, columns in ((SCORES, None if scores is None else list(scores.columns)),
-                          (FORECASTS, forecast_columns)):
+    for name, columns in ((SCORES, score_columns), (FORECASTS, forecast_columns)):
         if columns is not None and not {"fold", "origin"} & set(columns):
             raise DataError(f"{folder.where(name)}: column 'fold' is missing (or 'origin')")
     return Results(
@@ -122,7 +212,7 @@ def read_results(out_dir: Path, *, forecasts: bool = True) -> Results:
         rank_by=rank_by,
         board=board,
         horizon=_optional(folder, HORIZON, base + ("step",)),
-        scores=scores,
+        scores=score_frame,
         forecasts=frame,
         failures=_optional(folder, FAILURES, base + ("reason",)),
         history=_history(folder),
@@ -130,6 +220,7 @@ def read_results(out_dir: Path, *, forecasts: bool = True) -> Results:
         series_segments=_optional(folder, SERIES_SEGMENTS, ("dataset", "series")),
         folder=folder,
         has_forecasts=has_forecasts,
+        has_scores=has_scores,
     )
 
 

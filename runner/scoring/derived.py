@@ -1,9 +1,10 @@
 """Computing derived candidates from the forecasts of a run, and what the selections chose.
 
-:func:`add_derived` runs once every baseline and model forecast of the plan is known and
-before anything is scored. It computes each derived candidate (:mod:`runner.forecasters.derived`)
-per task (series, fold) from its components' point forecasts of the same run: nothing is
-refitted, so adding one to a config whose model forecasts are cached computes no forecast.
+:func:`add_derived_dataset` runs, chunk by chunk of series, once every baseline and model
+forecast of the chunk is known and before anything is scored. It computes each derived
+candidate (:mod:`runner.forecasters.derived`) per task (series, fold) from its components'
+point forecasts of the same run: nothing is refitted, so adding one to a config whose model
+forecasts are cached computes no forecast.
 
 - ``combination``: the mean or median of the components' forecasts, step by step; a task where
   any component failed is failed (``component-failed``, naming the component), so the fair
@@ -20,8 +21,6 @@ season 1) fails every task that needs it, with reason ``component-missing``.
 
 from __future__ import annotations
 
-from typing import TYPE_CHECKING
-
 import numpy as np
 import pandas as pd
 
@@ -30,10 +29,8 @@ from runner.forecasters.derived import COMPUTE_ORDER, components
 from runner.forecasters.registry import is_derived
 from runner.forecasters.slices import SliceSummary
 from runner.scoring import metrics as M
+from runner.scoring.results import Evaluation, ForecasterResult
 from runner.windows.plan import DatasetPlan, Plan
-
-if TYPE_CHECKING:  # evaluate imports this module; the classes are only needed for types here
-    from runner.scoring.evaluate import Evaluation, ForecasterResult
 
 #: ``basis`` of a selection's task: chosen on the series' earlier folds, or the fallback.
 HISTORY, FALLBACK = "history", "fallback"
@@ -51,42 +48,42 @@ class _Missing:
         self.failed = np.ones(n, dtype=bool)
 
 
-def add_derived(
-    plan: Plan, summaries: list[SliceSummary], per_dataset: list[dict[int, ForecasterResult]]
+def add_derived_dataset(
+    plan: Plan, dp: DatasetPlan, summary: SliceSummary, results: dict[int, ForecasterResult]
 ) -> None:
-    """Add the result of every derived candidate of ``plan`` to ``per_dataset`` (forecaster
-    index -> result, one dict per dataset), computed from the results already there."""
-    from runner.scoring.evaluate import ForecasterResult  # here: evaluate imports this module
+    """Add the result of every derived candidate of dataset ``dp`` to ``results``
+    (forecaster index -> result), computed from the results already there. ``dp`` and
+    ``summary`` may hold any subset of the dataset's tasks that keeps every task of a series
+    (a chunk of series: a selection looks at its series' earlier folds)."""
 
     horizon, n_levels = plan.config.horizon, len(plan.config.intervals)
-    for d, dp in enumerate(plan.datasets):
-        derived = [f for f in dp.forecasters if is_derived(plan.forecasters[f])]
-        if not derived:
-            continue
-        known = {plan.forecasters[f].name: r for f, r in per_dataset[d].items()}
-        derived.sort(key=lambda f: COMPUTE_ORDER.index(plan.forecasters[f].kind))
-        for f in derived:
-            spec = plan.forecasters[f]
-            names = components(spec)
-            if spec.kind == "best_so_far":
-                names.append(spec.params.get("fallback") or dp.reference)
-            parts = {
-                name: known[name] if name in known
-                else _Missing(name, dp.panel.name, dp.n_tasks, horizon)
-                for name in names
-            }
-            if spec.kind == "combination":
-                point, reason, message, info = _combine(spec, parts)
-            else:
-                point, reason, message, info = _select(
-                    spec, parts, dp, summaries[d], plan.config.rank_by, horizon
-                )
-            nan_bounds = np.full((n_levels, dp.n_tasks, horizon), np.nan)
-            result = ForecasterResult(
-                spec, point, nan_bounds, nan_bounds.copy(), reason, message, info=info
+    derived = [f for f in dp.forecasters if is_derived(plan.forecasters[f])]
+    if not derived:
+        return
+    known = {plan.forecasters[f].name: r for f, r in results.items()}
+    derived.sort(key=lambda f: COMPUTE_ORDER.index(plan.forecasters[f].kind))
+    for f in derived:
+        spec = plan.forecasters[f]
+        names = components(spec)
+        if spec.kind == "best_so_far":
+            names.append(spec.params.get("fallback") or dp.reference)
+        parts = {
+            name: known[name] if name in known
+            else _Missing(name, dp.panel.name, dp.n_tasks, horizon)
+            for name in names
+        }
+        if spec.kind == "combination":
+            point, reason, message, info = _combine(spec, parts)
+        else:
+            point, reason, message, info = _select(
+                spec, parts, dp, summary, plan.config.rank_by, horizon
             )
-            per_dataset[d][f] = result
-            known[spec.name] = result
+        nan_bounds = np.full((n_levels, dp.n_tasks, horizon), np.nan)
+        result = ForecasterResult(
+            spec, point, nan_bounds, nan_bounds.copy(), reason, message, info=info
+        )
+        results[f] = result
+        known[spec.name] = result
 
 
 def _task_failed(r) -> np.ndarray:

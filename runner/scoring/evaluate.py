@@ -1,15 +1,23 @@
 """Forecasting every task of a plan and scoring it: the computational core of a run.
 
+:func:`evaluate` goes in two steps. First the forecasts that need the engine (cache, workers,
+fault isolation) are made for the whole plan: per-series models and models trained across
+series, and forecasts read from files (a fit costs far more than its forecast takes to keep).
+Then each dataset is forecast and scored a chunk of ``execution.chunk`` series at a time
+(:mod:`runner.scoring.chunks`): training-slice statistics, benchmarks, derived candidates,
+scores. A chunk's forecasts are handed to a sink (the results writer streams them to
+forecasts.parquet) and dropped, so the memory a run needs grows with the chunk, not with the
+number of series; what is kept is what the leaderboard, the horizon table and the
+significance tests are built from, and it is the same whatever the chunk size.
+
 A dataset read with ``missing: interpolate`` keeps its missing values as NaN. Every forecaster
 sees its training slice filled from that slice alone (:mod:`runner.forecasters.gaps`), and a
 missing actual in a test block is not scored: it is left out of every metric's mean, and the
-run reports how many there were (a note on stderr and ``unscored_actuals`` in the manifest).
+run reports how many there were (a note in :attr:`DatasetResult.notes`, which the command line
+prints, and ``unscored_actuals`` in the manifest).
 """
 
 from __future__ import annotations
-
-import sys
-from dataclasses import dataclass, field
 
 import numpy as np
 
@@ -18,233 +26,239 @@ from runner.execution.dispatch import EngineCounts, forecast_models
 from runner.execution.model_tasks import build_model_tasks
 from runner.execution.panel_tasks import build_panel_tasks, panel_results, panel_rows
 from runner.execution.tasks import ModelTask, TaskOutcome
+from runner.forecasters.gaps import SliceFill
 from runner.forecasters.recorded import recorded_forecasts
 from runner.forecasters.registry import build, is_vectorised
 from runner.forecasters.slices import SliceSummary, summarise
 from runner.scoring import metrics as M
-from runner.scoring.derived import add_derived
+from runner.scoring.chunks import Gathered, Tally, chunk_plan, cut, series_chunks
+from runner.scoring.derived import add_derived_dataset
+from runner.scoring.results import (
+    Chunk,
+    DatasetResult,
+    Evaluation,
+    ForecasterResult,
+    Sink,
+    Sparse,
+)
+from runner.scoring.significance import block_differences
 from runner.windows.plan import DatasetPlan, Plan
 
+__all__ = ["Chunk", "DatasetResult", "Evaluation", "ForecasterResult", "Sink", "Sparse",
+           "evaluate", "series_chunks"]
 
-@dataclass
-class ForecasterResult:
-    """Forecasts and scores of one forecaster on every task of one dataset (task order)."""
-
-    spec: ForecasterSpec
-    point: np.ndarray  # (n, H), NaN rows for failed tasks
-    lower: np.ndarray  # (levels, n, H)
-    upper: np.ndarray
-    reason: list[str | None]  # None where the task succeeded
-    message: list[str]
-    scores: dict[str, M.Scored] = field(default_factory=dict)
-    loss: np.ndarray | None = None  # (n, H) pointwise loss of the rank metric
-    info: list[dict] = field(default_factory=list)
-
-    @property
-    def failed(self) -> np.ndarray:
-        """Boolean mask of failed tasks."""
-        return np.array([r is not None for r in self.reason], dtype=bool)
-
-
-@dataclass
-class DatasetResult:
-    """Everything computed for one dataset."""
-
-    plan: DatasetPlan
-    actual: np.ndarray  # (n, H)
-    results: list[ForecasterResult]
-    summary: SliceSummary
-    warnings: list[str] = field(default_factory=list)
-    notes: list[str] = field(default_factory=list)
-
-    @property
-    def unscored_actuals(self) -> int:
-        """Missing actuals in the test blocks (not scored); each (series, time) counted once."""
-        missing = np.isnan(self.actual)
-        if not missing.any():
-            return 0
-        steps = np.arange(self.actual.shape[1])
-        return int(len(np.unique((self.plan.test_starts[:, None] + steps[None, :])[missing])))
-
-
-@dataclass
-class Evaluation:
-    """The outcome of forecasting and scoring a whole plan."""
-
-    plan: Plan
-    datasets: list[DatasetResult]
-    counts: EngineCounts
-    stopped: bool = False
-
-
-def _baseline_result(
-    spec: ForecasterSpec, dp: DatasetPlan, summary: SliceSummary, horizon: int,
-    levels: tuple[float, ...],
-) -> ForecasterResult:
-    model = build(spec)
-    # Forecast through the gap (if any) and keep the last ``horizon`` steps: the scored block.
-    gap = int(dp.test_starts[0] - dp.ends[0]) if dp.n_tasks else 0
-    b = model.forecast_many(
-        dp.panel.values, dp.starts, dp.ends, horizon + gap,
-        season=dp.panel.season, levels=levels, summary=summary,
-    )
-    b.point, b.lower, b.upper = b.point[:, gap:], b.lower[:, :, gap:], b.upper[:, :, gap:]
-    reason = [None if ok else "too-short" for ok in b.ok]
-    message = ["" if ok else b.message for ok in b.ok]
-    return ForecasterResult(spec, b.point, b.lower, b.upper, reason, message)
-
-
-def _few(names: list[str], show: int = 3) -> str:
-    more = f" and {len(names) - show} more" if len(names) > show else ""
-    return ", ".join(names[:show]) + more
-
-
-def _undefined_warnings(
-    dp: DatasetPlan, ordered: list[ForecasterResult], cols: list[str]
-) -> list[str]:
-    """One warning per kind of undefined score: which metrics, how many scores, where.
-
-    A constant series makes every scaled metric undefined for every forecaster at once; a line
-    per forecaster and metric would bury the other messages. Metrics undefined for the same
-    series and forecasters share a line.
-    """
-    kinds: dict[tuple[tuple[int, ...], tuple[str, ...]], list[tuple[str, int]]] = {}
-    for col in cols:
-        hits = [(r.spec.name, r.scores[col].undefined) for r in ordered
-                if col in r.scores and r.scores[col].undefined.any()]  # fmt: skip
-        if hits:
-            series = tuple(np.unique(np.concatenate([dp.series[u] for _, u in hits])).tolist())
-            key = (series, tuple(name for name, _ in hits))
-            kinds.setdefault(key, []).append((col, sum(int(u.sum()) for _, u in hits)))
-    lines = []
-    for (series, forecasters), metrics in kinds.items():
-        names = [dp.panel.keys[i] for i in series]
-        what = _few([col for col, _ in metrics], show=len(metrics))
-        lines.append(
-            f"dataset {dp.panel.name}: {what} undefined (zero or undefined denominator) in "
-            f"{sum(n for _, n in metrics)} score(s): {len(names)} series ({_few(names)}), "
-            f"{len(forecasters)} forecaster(s) ({_few(list(forecasters))}); left out of the means"
-        )
-    return lines
+#: Forecaster index -> its result, for one dataset.
+Results = dict[int, ForecasterResult]
 
 
 def evaluate(
-    plan: Plan, *, use_cache: bool = True, jobs: int | None = None, quiet: bool = False
+    plan: Plan, *, use_cache: bool = True, jobs: int | None = None, quiet: bool = False,
+    sink: Sink | None = None,
 ) -> Evaluation:
-    """Forecast every (dataset, series, forecaster, fold) task of ``plan`` and score it."""
-    cfg = plan.config
-    horizon, levels = cfg.horizon, tuple(cfg.intervals)
-    steps = np.arange(horizon)
-    summaries = [
-        summarise(dp.panel.values, dp.starts, dp.ends, dp.panel.season) for dp in plan.datasets
-    ]
-    per_dataset: list[dict[int, ForecasterResult]] = [{} for _ in plan.datasets]
+    """Forecast every (dataset, series, forecaster, fold) task of ``plan`` and score it.
 
-    # Baselines: vectorised over all tasks of a dataset at once, in this process.
-    for d, dp in enumerate(plan.datasets):
-        for f in dp.forecasters:
-            spec = plan.forecasters[f]
-            if is_vectorised(spec):
-                per_dataset[d][f] = _baseline_result(spec, dp, summaries[d], horizon, levels)
+    ``sink`` receives each chunk of series, forecast and scored, before its forecasts are
+    dropped (see the module doc). A dataset of one chunk keeps its forecasts in the result,
+    as a run kept in memory wants them. ``quiet`` silences the engine's progress line; notes
+    and warnings are returned in the :class:`DatasetResult`, never printed.
+    """
+    whole, counts, stopped = _engine_forecasts(plan, use_cache, jobs, quiet)
+    datasets = [_evaluate_dataset(plan, d, whole[d], sink) for d in range(len(plan.datasets))]
+    return Evaluation(plan, datasets, counts, stopped)
+
+
+# ------------------------------------------------------------ step 1: the engine's forecasts
+
+
+def _engine_forecasts(
+    plan: Plan, use_cache: bool, jobs: int | None, quiet: bool
+) -> tuple[list[Results], EngineCounts, bool]:
+    """Every forecast that is made for the whole plan at once: recorded candidates,
+    per-series models and models trained across series (through the engine)."""
+    per_dataset: list[Results] = [{} for _ in plan.datasets]
     for rec in recorded_forecasts(plan):  # forecasts read from files: no fit, no task
         per_dataset[rec.dataset][rec.forecaster] = ForecasterResult(
             plan.forecasters[rec.forecaster], rec.point, rec.lower, rec.upper, rec.reason,
             rec.message)
     model_tasks, shared = build_model_tasks(plan)
-
-    # Per-series models: through the engine (cache, workers, fault isolation).
-    counts = EngineCounts()
-    stopped = False
+    counts, stopped = EngineCounts(), False
     if model_tasks:
         outcomes, counts = forecast_models(
-            model_tasks, shared, cfg.execution, use_cache=use_cache, jobs=jobs, quiet=quiet,
-            cache_path=cfg.execution.cache_folder(),
+            model_tasks, shared, plan.config.execution, use_cache=use_cache, jobs=jobs,
+            quiet=quiet, cache_path=plan.config.execution.cache_folder(),
         )
         by_index = {o.index: o for o in outcomes}
         stopped = len(by_index) < len(model_tasks) or any(
             o.reason == "not-run" for o in outcomes
         )
-        n_levels = len(levels)
         grouped: dict[tuple[int, int], list[ModelTask]] = {}
         for task in model_tasks:
             grouped.setdefault((task.dataset, task.forecaster), []).append(task)
         for (d, f), tasks in grouped.items():
-            n = len(tasks)
-            point = np.full((n, horizon), np.nan)
-            lower = np.full((n_levels, n, horizon), np.nan)
-            upper = np.full((n_levels, n, horizon), np.nan)
-            reason: list[str | None] = []
-            message: list[str] = []
-            info: list[dict] = []
-            for t, task in enumerate(tasks):
-                o = by_index.get(task.index)
-                if o is None:
-                    reason.append("not-run")
-                    message.append("the run stopped at an earlier failure (on_error: stop)")
-                    info.append({})
-                    continue
-                reason.append(o.reason)
-                message.append(o.message)
-                info.append(o.info)
-                if o.ok:
-                    point[t] = o.point
-                    if n_levels:
-                        lower[:, t] = o.lower
-                        upper[:, t] = o.upper
-            per_dataset[d][f] = ForecasterResult(
-                plan.forecasters[f], point, lower, upper, reason, message, info=info
-            )
-
-    # Models trained across series: one task per (dataset, forecaster, origin), same engine.
+            per_dataset[d][f] = _model_result(plan, plan.forecasters[f], tasks, by_index)
     panel_tasks = build_panel_tasks(plan, first_index=len(model_tasks))
     if panel_tasks:
-        panel_out: list[TaskOutcome] = []
-        if stopped:  # on_error: stop, and a per-series task failed: no panel task runs
-            counts.not_run += sum(panel_rows(t, shared) for t in panel_tasks)
-        else:
-            panel_out, panel_counts = forecast_models(
-                panel_tasks, shared, cfg.execution, use_cache=use_cache, jobs=jobs,
-                quiet=quiet, cache_path=cfg.execution.cache_folder(), label="panel fits",
-            )
-            counts = counts + panel_counts
-            stopped = any(o.reason == "not-run" for o in panel_out)
-        for (d, f), pr in panel_results(plan, panel_tasks, panel_out, shared).items():
-            per_dataset[d][f] = ForecasterResult(
-                plan.forecasters[f], pr.point, pr.lower, pr.upper, pr.reason, pr.message,
-                info=pr.info,
-            )
+        counts, stopped = _panel_forecasts(plan, panel_tasks, shared, per_dataset, counts,
+                                           stopped, use_cache, jobs, quiet)
+    return per_dataset, counts, stopped
 
-    add_derived(plan, summaries, per_dataset)  # combinations, selections: from the forecasts
 
-    # Scores: computed from the forecasts at every run, so a new metric never refits.
+def _model_result(
+    plan: Plan, spec: ForecasterSpec, tasks: list[ModelTask], by_index: dict[int, TaskOutcome],
+) -> ForecasterResult:
+    """One per-series model's result on one dataset from the engine's outcomes (a task
+    without an outcome did not run: the run stopped at an earlier failure)."""
+    n, horizon, n_levels = len(tasks), plan.config.horizon, len(plan.config.intervals)
+    point = np.full((n, horizon), np.nan)
+    lower = np.full((n_levels, n, horizon), np.nan)
+    upper = np.full((n_levels, n, horizon), np.nan)
+    reason: list[str | None] = []
+    message: list[str] = []
+    info: list[dict] = []
+    for t, task in enumerate(tasks):
+        o = by_index.get(task.index)
+        if o is None:
+            reason.append("not-run")
+            message.append("the run stopped at an earlier failure (on_error: stop)")
+            info.append({})
+            continue
+        reason.append(o.reason)
+        message.append(o.message)
+        info.append(o.info)
+        if o.ok:
+            point[t] = o.point
+            if n_levels:
+                lower[:, t] = o.lower
+                upper[:, t] = o.upper
+    return ForecasterResult(spec, point, lower, upper, reason, message, info=info)
+
+
+def _panel_forecasts(
+    plan: Plan, panel_tasks: list, shared: object, per_dataset: list[Results],
+    counts: EngineCounts, stopped: bool, use_cache: bool, jobs: int | None, quiet: bool,
+) -> tuple[EngineCounts, bool]:
+    """Models trained across series: one task per (dataset, forecaster, origin), through the
+    same engine; their results go into ``per_dataset``."""
+    panel_out: list[TaskOutcome] = []
+    if stopped:  # on_error: stop, and a per-series task failed: no panel task runs
+        counts.not_run += sum(panel_rows(t, shared) for t in panel_tasks)
+    else:
+        execution = plan.config.execution
+        panel_out, panel_counts = forecast_models(
+            panel_tasks, shared, execution, use_cache=use_cache, jobs=jobs, quiet=quiet,
+            cache_path=execution.cache_folder(), label="panel fits",
+        )
+        counts = counts + panel_counts
+        stopped = any(o.reason == "not-run" for o in panel_out)
+    for (d, f), pr in panel_results(plan, panel_tasks, panel_out, shared).items():
+        per_dataset[d][f] = ForecasterResult(
+            plan.forecasters[f], pr.point, pr.lower, pr.upper, pr.reason, pr.message,
+            info=pr.info,
+        )
+    return counts, stopped
+
+
+# ------------------------------------------------------ step 2: chunk by chunk of series
+
+
+def _evaluate_dataset(plan: Plan, d: int, whole: Results, sink: Sink | None) -> DatasetResult:
+    """Forecast and score dataset ``d`` chunk by chunk, handing each chunk to ``sink``;
+    ``whole`` holds the engine's results for the whole dataset."""
+    dp = plan.datasets[d]
+    cols = M.columns(plan.config.metrics, tuple(plan.config.intervals))
+    spans = list(series_chunks(dp, plan.config.execution.chunk))
+    gathered = {f: Gathered(plan.forecasters[f], dp.n_tasks) for f in dp.forecasters}
+    tally = Tally(cols)
+    chunk: Chunk | None = None
+    fill = SliceFill(dp.panel.values)  # what it derives from the whole panel, derived once
+    for tasks in spans:
+        sub, summary, results = _forecast_chunk(plan, dp, fill, tasks, whole)
+        carry = {f: gathered[f].carry() for f in dp.forecasters}
+        actual = _score_chunk(plan, sub, summary, results, carry)
+        chunk = Chunk(d, sub, tasks, actual, results, summary)
+        if sink is not None:
+            sink(chunk)
+        tally.add(chunk)
+        for f, r in zip(dp.forecasters, results):
+            gathered[f].add(r)
+    assert chunk is not None  # series_chunks yields at least one range
+    if len(spans) == 1:  # one chunk: everything as computed, forecasts included
+        result = DatasetResult(dp, chunk.actual, chunk.results, chunk.summary)
+    else:
+        ordered = [gathered[f].result() for f in dp.forecasters]
+        result = DatasetResult(dp, None, ordered, None)
+    result.unscored_actuals = tally.unscored
+    result.notes = tally.notes(dp)
+    result.warnings = tally.warnings(dp, [plan.forecasters[f].name for f in dp.forecasters])
+    return result
+
+
+def _forecast_chunk(
+    plan: Plan, dp: DatasetPlan, fill: SliceFill, tasks: slice, whole: Results
+) -> tuple[DatasetPlan, SliceSummary, list[ForecasterResult]]:
+    """The forecasts of the tasks ``tasks`` of ``dp``: benchmarks and derived candidates
+    computed here (``fill``: the panel's values), the engine's results cut from ``whole``;
+    in the dataset's forecaster order, with the chunk's plan and training-slice statistics."""
+    horizon, levels = plan.config.horizon, tuple(plan.config.intervals)
+    sub = chunk_plan(dp, tasks)
+    summary = summarise(fill, sub.starts, sub.ends, sub.panel.season)
+    results: Results = {}
+    for f in dp.forecasters:
+        spec = plan.forecasters[f]
+        if is_vectorised(spec):
+            results[f] = _baseline_result(spec, sub, fill, summary, horizon, levels)
+        elif f in whole:
+            results[f] = whole[f] if sub is dp else cut(whole[f], tasks)
+    add_derived_dataset(plan, sub, summary, results)  # combinations, selections
+    return sub, summary, [results[f] for f in dp.forecasters]
+
+
+def _baseline_result(
+    spec: ForecasterSpec, dp: DatasetPlan, fill: SliceFill, summary: SliceSummary,
+    horizon: int, levels: tuple[float, ...],
+) -> ForecasterResult:
+    model = build(spec)
+    # Forecast through the gap (if any) and keep the last ``horizon`` steps: the scored block.
+    gap = int(dp.test_starts[0] - dp.ends[0]) if dp.n_tasks else 0
+    b = model.forecast_many(
+        fill, dp.starts, dp.ends, horizon + gap,
+        season=dp.panel.season, levels=levels, summary=summary,
+    )
+    b.point, b.lower, b.upper = b.point[:, gap:], b.lower[:, :, gap:], b.upper[:, :, gap:]
+    if b.ok.all():  # the usual case: no per-task list to build
+        return ForecasterResult(spec, b.point, b.lower, b.upper, Sparse(len(b.ok), {}, None),
+                                Sparse(len(b.ok), {}, ""))
+    reason = [None if ok else "too-short" for ok in b.ok]
+    message = ["" if ok else b.message for ok in b.ok]
+    return ForecasterResult(spec, b.point, b.lower, b.upper, reason, message)
+
+
+def _score_chunk(
+    plan: Plan, sub: DatasetPlan, summary: SliceSummary, results: list[ForecasterResult],
+    carry: dict[int, dict[str, tuple[np.ndarray, np.ndarray]]],
+) -> np.ndarray:
+    """Score every result of a chunk (in place) and return the chunk's actuals (n, H).
+
+    Scores are computed from the forecasts at every run, so a new metric never refits.
+    Missing actuals stay NaN: the metrics leave them out (never filled from anything).
+    ``carry``: per forecaster index, the per-step sums of the chunks before.
+    """
+    cfg = plan.config
+    levels = tuple(cfg.intervals)
+    steps = np.arange(cfg.horizon)
+    actual = sub.panel.values[sub.test_starts[:, None] + steps[None, :]]
+    mase_scale = M.scale_mase(summary.seasonal_abs, summary.length, sub.panel.season)
+    rmsse_scale = M.scale_rmsse(summary.diff_sq, summary.length)
     cols = M.columns(cfg.metrics, levels)
-    results = []
-    for d, dp in enumerate(plan.datasets):
-        s = summaries[d]
-        # missing actuals stay NaN: the metrics leave them out (never filled from a forecast's
-        # own training slice, nor from anything else)
-        actual = dp.panel.values[dp.test_starts[:, None] + steps[None, :]]
-        mase_scale = M.scale_mase(s.seasonal_abs, s.length, dp.panel.season)
-        rmsse_scale = M.scale_rmsse(s.diff_sq, s.length)
-        ordered = [per_dataset[d][f] for f in dp.forecasters]
-        for r in ordered:
-            r.scores = M.score_tasks(
-                cols, actual, r.point, r.lower, r.upper, levels, mase_scale, rmsse_scale
-            )
-            r.loss = M.pointwise_loss(cfg.rank_by, actual, r.point, mase_scale, rmsse_scale)
-        warnings = _undefined_warnings(dp, ordered, cols)
-        result = DatasetResult(dp, actual, ordered, s, warnings)
-        if result.unscored_actuals:
-            hit = np.isnan(actual).any(axis=1)
-            result.notes.append(
-                f"dataset {dp.panel.name}: {result.unscored_actuals} missing actual(s) in the "
-                f"test blocks of {len(np.unique(dp.series[hit]))} series are not scored (left "
-                "out of every metric's mean)"
-            )
-        if not quiet:
-            for note in result.notes:
-                print(f"castgrid: note: {note}", file=sys.stderr)
-            for w in warnings:
-                print(f"castgrid: warning: {w}", file=sys.stderr)
-        results.append(result)
-    return Evaluation(plan, results, counts, stopped)
+    losses = []
+    for f, r in zip(sub.forecasters, results):
+        assert r.point is not None
+        r.scores = M.score_tasks(cols, actual, r.point, r.lower, r.upper, levels, mase_scale,
+                                 rmsse_scale, carry=carry[f])
+        loss = M.pointwise_loss(cfg.rank_by, actual, r.point, mase_scale, rmsse_scale)
+        losses.append(np.full(r.point.shape, np.nan) if loss is None else loss)
+    ref = next((i for i, r in enumerate(results) if r.spec.name == sub.reference), None)
+    for r, loss in zip(results, losses):
+        r.versus_reference = (np.full(sub.n_tasks, np.nan) if ref is None
+                              else block_differences(loss, losses[ref]))
+    return actual

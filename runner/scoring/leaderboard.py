@@ -19,7 +19,7 @@ import numpy as np
 import pandas as pd
 
 from runner.scoring import metrics as M
-from runner.scoring.evaluate import DatasetResult, Evaluation, ForecasterResult
+from runner.scoring.results import DatasetResult, Evaluation, ForecasterResult
 from runner.windows.plan import DatasetPlan
 
 #: Float format of every number written to leaderboard.csv (fixed, so reruns are byte-equal).
@@ -93,16 +93,17 @@ def _versus_reference(
     r: ForecasterResult, ref: ForecasterResult, dr: DatasetResult, rank_by: str, horizon: int,
     step: int, both: np.ndarray,
 ) -> dict[str, object]:
-    from runner.scoring.significance import compare_with_reference
+    from runner.scoring.significance import compare_blocks
 
     score = r.scores[rank_by].per_task
     ref_score = ref.scores[rank_by].per_task
     if not both.any():
         return {"win_share": np.nan, "dm_better": np.nan, "dm_worse": np.nan,
                 "wilcoxon_p": np.nan, "significant": False}
-    c = compare_with_reference(
-        score[both], ref_score[both], r.loss[both], ref.loss[both],
-        dr.plan.series[both], dr.plan.fold[both], horizon, step=step,
+    assert r.versus_reference is not None
+    c = compare_blocks(
+        score[both], ref_score[both], r.versus_reference[both], dr.plan.series[both],
+        dr.plan.fold[both], horizon, step=step,
     )
     return {"win_share": c.win_share, "dm_better": c.dm_better, "dm_worse": c.dm_worse,
             "wilcoxon_p": c.wilcoxon_p, "significant": bool(c.significant)}

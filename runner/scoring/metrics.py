@@ -264,11 +264,29 @@ def info(column: str) -> MetricInfo:
 
 @dataclass
 class Scored:
-    """Scores of one metric column: per task (n,), per step (H,), and tasks that were NaN."""
+    """Scores of one metric column: per task (n,), per step (H,), and tasks that were NaN.
+
+    ``step_sum`` / ``step_count`` (H,) are the sum and the number of the pointwise losses
+    behind ``per_step`` (NaN left out), counted from where :func:`score_tasks` was told to
+    start: scored chunk by chunk, each chunk carrying on from the previous one, the last
+    chunk's are the whole run's (:func:`per_step_from`).
+    """
 
     per_task: np.ndarray
     per_step: np.ndarray
     undefined: np.ndarray
+    step_sum: np.ndarray | None = None
+    step_count: np.ndarray | None = None
+
+
+def per_step_from(column: str, step_sum: np.ndarray, step_count: np.ndarray) -> np.ndarray:
+    """Per-step scores from summed pointwise losses: the mean (its root for a root metric);
+    NaN at a step without any loss."""
+    with np.errstate(invalid="ignore", divide="ignore"):
+        mean = step_sum / step_count
+    if metric_of(column).reduction == "root_mean":
+        return np.sqrt(mean)
+    return mean
 
 
 def pointwise_loss(
@@ -325,11 +343,14 @@ def score_tasks(
     levels: tuple[float, ...],
     mase_scale: np.ndarray,
     rmsse_scale: np.ndarray,
+    carry: dict[str, tuple[np.ndarray, np.ndarray]] | None = None,
 ) -> dict[str, Scored]:
     """Score ``forecast`` (n, H) against ``actual`` (n, H) on every metric column.
 
     ``lower`` / ``upper`` are (levels, n, H); scales are per task (n,). Rows of ``forecast``
-    that are NaN (failed tasks) score NaN and are not counted as undefined.
+    that are NaN (failed tasks) score NaN and are not counted as undefined. ``carry`` gives,
+    per column, the per-step sums and counts of the tasks scored before these (earlier
+    chunks): the per-step figures then cover those tasks too.
     """
     out: dict[str, Scored] = {}
     failed = np.isnan(forecast).any(axis=1)
@@ -341,8 +362,9 @@ def score_tasks(
         if m.task_score is not None:
             per_task = m.task_score(actual, forecast)
             per_task[failed | ~scored] = np.nan
-            out[col] = Scored(per_task, np.full(actual.shape[1], np.nan),
-                              ok & scored & np.isnan(per_task))
+            h = actual.shape[1]
+            out[col] = Scored(per_task, np.full(h, np.nan), ok & scored & np.isnan(per_task),
+                              np.zeros(h), np.zeros(h, dtype=np.int64))
             continue
         x = LossInput(actual, forecast, mase_scale, rmsse_scale)
         if m.per_level:
@@ -356,9 +378,33 @@ def score_tasks(
         if m.per_level:
             # a forecaster without intervals has NaN bounds everywhere: not "undefined"
             undefined &= ~np.isnan(x.lower).all(axis=1)
-        per_step = _reduce(m, loss[ok], axis=0) if ok.any() else np.full(loss.shape[1], np.nan)
-        out[col] = Scored(per_task, per_step, undefined)
+        kept = loss[ok]
+        missing = np.isnan(kept)
+        start = (np.zeros(loss.shape[1]), np.zeros(loss.shape[1], dtype=np.int64))
+        if carry is not None and col in carry:
+            start = carry[col]
+        step_sum = running_sum(start[0], np.where(missing, 0.0, kept))
+        step_count = start[1] + (~missing).sum(axis=0, dtype=np.int64)
+        per_step = per_step_from(col, step_sum, step_count)
+        out[col] = Scored(per_task, per_step, undefined, step_sum, step_count)
     return out
+
+
+def running_sum(start: np.ndarray, rows: np.ndarray) -> np.ndarray:
+    """``start`` (H,) plus every row of ``rows`` (k, H), added one row after the other.
+
+    Always in that order (``numpy.cumsum`` accumulates strictly in sequence, where ``sum`` may
+    add in pairs), so that carrying the total from one chunk of rows to the next gives the
+    same bits as one pass over all of them, whatever the chunks.
+
+    >>> running_sum(np.array([1.0]), np.array([[1e16], [-1e16]]))
+    array([0.])
+    """
+    if not len(rows):
+        return np.array(start, dtype=float, copy=True)
+    # one contiguous row per step: cumsum along it runs straight through memory
+    by_step = np.concatenate([np.asarray(start, dtype=float)[:, None], rows.T], axis=1)
+    return np.cumsum(by_step, axis=1)[:, -1].copy()  # not a view keeping the whole cumsum
 
 
 #: The rank metric when the config sets none and lists it (or lists no metrics).

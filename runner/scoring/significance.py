@@ -252,6 +252,28 @@ def _wilcoxon(diffs: np.ndarray) -> tuple[float, bool]:
     return p, favours_first
 
 
+def block_differences(loss: np.ndarray, ref_loss: np.ndarray) -> np.ndarray:
+    """Per task, the forecaster's mean pointwise loss over its test block minus the
+    reference's: ``loss`` / ``ref_loss`` (n, H), the steps either has no finite loss for (a
+    missing actual) left out of both means; NaN for a task without such a step.
+
+    >>> block_differences(np.array([[1.0, 3.0], [2.0, np.nan]]), np.array([[1.0, 1.0],
+    ...                                                                     [1.0, 5.0]]))
+    array([1., 1.])
+    """
+    loss = np.asarray(loss, dtype=float)
+    ref_loss = np.asarray(ref_loss, dtype=float).reshape(loss.shape)
+    steps = np.isfinite(loss) & np.isfinite(ref_loss)
+    if steps.all():
+        return loss.mean(axis=1) - ref_loss.mean(axis=1)
+    count = steps.sum(axis=1)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        out = (np.where(steps, loss, 0.0).sum(axis=1) / count
+               - np.where(steps, ref_loss, 0.0).sum(axis=1) / count)
+    out[count == 0] = np.nan
+    return out
+
+
 def compare_with_reference(
     score: np.ndarray,
     ref_score: np.ndarray,
@@ -273,28 +295,39 @@ def compare_with_reference(
     are left out; steps with a NaN loss (a missing actual) are left out of a task's block.
     """
     score = np.asarray(score, dtype=float)
-    ref_score = np.asarray(ref_score, dtype=float)
     loss = np.asarray(loss, dtype=float).reshape(score.size, -1)
     ref_loss = np.asarray(ref_loss, dtype=float).reshape(score.size, -1)
+    if loss.shape != ref_loss.shape:
+        raise ValueError("score, ref_score, loss, ref_loss, series and folds must align")
+    return compare_blocks(score, ref_score, block_differences(loss, ref_loss), series, folds,
+                          horizon, step=step)
+
+
+def compare_blocks(
+    score: np.ndarray,
+    ref_score: np.ndarray,
+    block_diff: np.ndarray,
+    series: np.ndarray,
+    folds: np.ndarray,
+    horizon: int,
+    *,
+    step: int | None = None,
+) -> RefComparison:
+    """:func:`compare_with_reference` from each task's block difference
+    (:func:`block_differences`) instead of the losses: all the tests use of them, and what a
+    run keeps per task when it scores its series chunk by chunk."""
+    score = np.asarray(score, dtype=float)
+    ref_score = np.asarray(ref_score, dtype=float)
+    block_diff = np.asarray(block_diff, dtype=float)
     series = np.asarray(series)
     folds = np.asarray(folds)
-    if not (ref_score.size == series.size == folds.size == score.size == loss.shape[0]):
+    if not (ref_score.size == series.size == folds.size == score.size == block_diff.size):
         raise ValueError("score, ref_score, loss, ref_loss, series and folds must align")
-
-    # A step whose actual is missing has a NaN loss on both sides and is not scored; a task's
-    # block is the mean over its scored steps (all of them when nothing is missing).
-    steps = np.isfinite(loss) & np.isfinite(ref_loss)
-    ok = np.isfinite(score) & np.isfinite(ref_score) & steps.any(axis=1)
+    ok = np.isfinite(score) & np.isfinite(ref_score) & np.isfinite(block_diff)
     if not ok.any():
         return RefComparison(math.nan, 0, 0, math.nan, False)
     score, ref_score, series, folds = score[ok], ref_score[ok], series[ok], folds[ok]
-    loss, ref_loss, steps = loss[ok], ref_loss[ok], steps[ok]
-    if steps.all():
-        block_diff = loss.mean(axis=1) - ref_loss.mean(axis=1)
-    else:
-        count = steps.sum(axis=1)
-        block_diff = (np.where(steps, loss, 0.0).sum(axis=1) / count
-                      - np.where(steps, ref_loss, 0.0).sum(axis=1) / count)
+    block_diff = block_diff[ok]
 
     win_share = float(np.mean(score < ref_score))
     h = dm_lag_order(horizon, step)

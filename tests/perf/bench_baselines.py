@@ -21,6 +21,7 @@ from __future__ import annotations
 import argparse
 import os
 import resource
+import shutil
 import subprocess
 import sys
 import tempfile
@@ -80,15 +81,11 @@ def config_text(data: Path, forecasts: str | None, chunk: int | None) -> str:
         "    time: month",
         "    target: qty",
         "windows: {scheme: expanding, train: 48, step: 12, folds: 5}",
-        "execution: {jobs: 1, cache: false}",
+        "execution: {jobs: 1, cache: false"
+        + ("}" if chunk is None else f", chunk: {chunk}}}"),
     ]
-    output = []
     if forecasts is not None:
-        output.append(f"forecasts: {forecasts}")
-    if chunk is not None:
-        output.append(f"chunk: {chunk}")
-    if output:
-        out.append("output: {" + ", ".join(output) + "}")
+        out.append(f"output: {{forecasts: {forecasts}}}")
     return "\n".join(out) + "\n"
 
 
@@ -104,7 +101,7 @@ def main() -> int:
     ap.add_argument("--format", choices=("csv", "parquet"), default="csv")
     ap.add_argument("--forecasts", choices=("all", "compared", "none"), default=None,
                     help="output.forecasts (left out of the config when not given)")
-    ap.add_argument("--chunk", type=int, default=None, help="output.chunk (series per chunk)")
+    ap.add_argument("--chunk", type=int, default=None, help="execution.chunk (series per chunk)")
     ap.add_argument("--keep", default=None, help="work in this folder and keep it")
     args = ap.parse_args()
     with tempfile.TemporaryDirectory() as tmp:
@@ -116,9 +113,11 @@ def main() -> int:
               f"{data.stat().st_size / 2**20:.0f} MiB) written in {time.perf_counter() - t0:.1f} s")
         cfg = folder / "bench.yaml"
         cfg.write_text(config_text(data, args.forecasts, args.chunk))
-        out = folder / "out"
         walls, cpus = [], []
         for r in range(args.rounds):
+            # a new results folder each round: nothing of an earlier round (its plots) is reused
+            out = folder / f"out{r}"
+            shutil.rmtree(folder / f"out{r - 1}", ignore_errors=True)
             load = os.getloadavg()[0]
             cpu0 = children_cpu()
             t0 = time.perf_counter()
