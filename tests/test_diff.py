@@ -369,8 +369,8 @@ def test_segment_noise_is_within_tolerance_like_the_leaderboard(
     tmp_path: Path, capsys: pytest.CaptureFixture[str]
 ) -> None:
     # Measured on the demo under two OpenBLAS kernels: every segment row's mase moved by far
-    # less than the 2% tolerance, two candidates within noise of each other swapped places, and diff called
-    # the run changed although the leaderboard itself was within tolerance.
+    # less than the 2% tolerance, two candidates within noise of each other swapped places,
+    # and diff called the run changed although the leaderboard itself was within tolerance.
     a = write_folder(tmp_path / "a", OLD_SHOPS, "aaaa1111", ["arima"])
     b = tmp_path / "b"
     shutil.copytree(a, b)
