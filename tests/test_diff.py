@@ -355,13 +355,14 @@ def test_noise_tolerance_of_each_metric() -> None:
     assert noise_tolerance("mase", float("nan"), 120, 6, 4) == 0.0
 
 
-def _segments(folder: Path, rows: list[tuple[str, int, str, float, bool]]) -> None:
-    """leaderboard_segments.csv of one segment (format kiosk, 4 series, 5 folds): rows of
-    (forecaster, rank, role, mase, beats)."""
+def _segments(folder: Path, rows: list[tuple[str, int, str, float, bool]],
+              series: int = 4) -> None:
+    """leaderboard_segments.csv of one segment (format kiosk, ``series`` series, 5 folds):
+    rows of (forecaster, rank, role, mase, beats)."""
     lines = ["dataset,attribute,segment,rank,forecaster,kind,role,series,folds,tasks,failed,"
              "mase_mean,beats_reference"]
-    lines += [f"shops,format,kiosk,{rank},{name},{name},{role},4,5,20,0,{mase!r},"
-              f"{'true' if beats else 'false'}" for name, rank, role, mase, beats in rows]
+    lines += [f"shops,format,kiosk,{rank},{name},{name},{role},{series},5,{5 * series},0,"
+              f"{mase!r},{'true' if beats else 'false'}" for name, rank, role, mase, beats in rows]
     (folder / "leaderboard_segments.csv").write_text("\n".join(lines) + "\n")
 
 
@@ -411,3 +412,22 @@ def test_segment_noise_is_within_tolerance_like_the_leaderboard(
     assert arima.rstrip().endswith("within tolerance")
     theta = next(x for x in text.splitlines() if "kiosk" in x and " theta " in x)
     assert theta.rstrip().endswith("better")
+
+
+def test_a_small_segment_gets_the_tolerance_of_a_mean_over_fewer_series(tmp_path: Path) -> None:
+    # A mean over n series of independent per-series noise moves by 1/sqrt(n) (common
+    # practice): a segment of 1 of the dataset's 4 series gets twice the leaderboard's 2%.
+    a = write_folder(tmp_path / "a", OLD_SHOPS, "aaaa1111", ["arima"])
+    b = tmp_path / "b"
+    shutil.copytree(a, b)
+    _rewrite(a, platform=PLATFORM)
+    other = json.loads(json.dumps(PLATFORM))
+    other["blas"][0]["kernel"] = "Haswell"
+    _rewrite(b, platform=other)
+    _segments(a, [("arima", 1, "candidate", 0.8, True)], series=1)
+    for new, noise in ((0.8 * 1.03, True), (0.8 * 1.05, False)):  # +3%, +5%
+        _segments(b, [("arima", 1, "candidate", new, True)], series=1)
+        d = compare(Results.load(str(a)), Results.load(str(b)))
+        row = d.datasets[0].segments[0]
+        assert row.tolerance == pytest.approx(0.8 * 0.02 * 2)
+        assert row.within_tolerance() is noise and row.changed() is not noise

@@ -429,17 +429,23 @@ def compare(old: Results, new: Results) -> Diff:
                 nv = float(n[col]) if n is not None and col in n else math.nan
                 fc.values[m] = (ov, nv)
             dd.forecasters.append(fc)
-        _compare_segments(dd, old, new, rank_by, horizon, exact=same_platform)
+        whole = {f: float(r["series"]) for f, r in old_rows.items() if "series" in r}
+        _compare_segments(dd, old, new, rank_by, horizon, exact=same_platform, whole=whole)
         datasets.append(dd)
     return Diff(old, new, rank_by, config_changes, version_changes, datasets, platforms)
 
 
 def _compare_segments(dd: DatasetDiff, old: Results, new: Results, rank_by: str,
-                      horizon: int, exact: bool) -> None:
-    """Fill ``dd.segments``: rank, series count, rank metric (with its numerical tolerance, as
-    for the leaderboard; none when ``exact``, as on one platform) and win of every
-    forecaster in every segment, old and new (rows in the new file's order, then those only in
-    the old)."""
+                      horizon: int, exact: bool, whole: dict[str, float]) -> None:
+    """Fill ``dd.segments``: rank, series count, rank metric (with its numerical tolerance;
+    none when ``exact``, as on one platform) and win of every forecaster in every segment, old
+    and new (rows in the new file's order, then those only in the old).
+
+    A segment's mean averages fewer series than the leaderboard's, so the same per-series
+    noise moves it more: by the usual 1/sqrt(n) of a mean of independent errors, its tolerance
+    is the leaderboard's times sqrt(series in the dataset / series in the segment), where
+    ``whole`` gives the dataset's series per forecaster (old leaderboard).
+    """
     if dd.status != "both" or (old.segments is None and new.segments is None):
         return
     if old.segments is None or new.segments is None:
@@ -465,7 +471,8 @@ def _compare_segments(dd: DatasetDiff, old: Results, new: Results, rank_by: str,
                    float(n[col]) if n is not None and col in n else math.nan),
             beats=(None if o is None else bool(o["beats_reference"]),
                    None if n is None else bool(n["beats_reference"])),
-            tolerance=0.0 if exact else _tolerances(o, [rank_by], horizon).get(rank_by, 0.0),
+            tolerance=0.0 if exact else _segment_tolerance(o, rank_by, horizon,
+                                                           whole.get(key[2], math.nan)),
         ))
     # A segment whose rows all kept their rank metric within tolerance has only noise in it;
     # its rank swaps follow from that noise (another CPU or BLAS kernel), not from a change.
@@ -476,6 +483,15 @@ def _compare_segments(dd: DatasetDiff, old: Results, new: Results, rank_by: str,
         noisy[(s.attribute, s.segment)] = noisy.get((s.attribute, s.segment), True) and calm
     for s in dd.segments:
         s.segment_within_tolerance = noisy[(s.attribute, s.segment)]
+
+
+def _segment_tolerance(row: dict[str, Any] | None, rank_by: str, horizon: int,
+                       whole: float) -> float:
+    base = _tolerances(row, [rank_by], horizon).get(rank_by, 0.0)
+    part = math.nan if row is None else float(row.get("series", math.nan))
+    if not (math.isfinite(whole) and math.isfinite(part)) or part <= 0 or whole <= part:
+        return base
+    return base * math.sqrt(whole / part)
 
 
 def _failed(row: dict[str, Any] | None) -> float:
