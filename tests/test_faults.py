@@ -88,7 +88,11 @@ def test_worker_that_exits_or_segfaults_fails_only_its_task(tmp_path):
 
 
 _GATED_RUN = """
+import signal
 import sys
+# Ctrl-C as in a terminal: a process started in the background of a non-interactive shell
+# (as CI runners start the suite) inherits SIGINT ignored, and Python then keeps it ignored
+signal.signal(signal.SIGINT, signal.default_int_handler)
 sys.path[:0] = [{tests!r}]
 from dataclasses import replace
 from test_parallel import macro_work, plugin
