@@ -38,7 +38,7 @@ from __future__ import annotations
 import copy
 import inspect
 import pickle
-from collections.abc import Callable
+from collections.abc import Callable, Sequence
 from dataclasses import dataclass, field
 from typing import Any
 
@@ -199,7 +199,7 @@ def _conformance_check(fn: Callable[[Subject], None]) -> Callable[[Subject], Non
     return fn
 
 
-def _check_name(fn: Callable[[Subject], None]) -> str:
+def _check_name(fn: Callable[..., None]) -> str:
     return fn.__name__.removeprefix("check_")
 
 
@@ -442,7 +442,7 @@ def check_covariates(c: Subject) -> None:
 CHECKS: tuple[str, ...] = tuple(_check_name(fn) for fn in _CHECK_FUNCTIONS)
 
 
-def _run_one(report: CheckReport, fn: Callable[[Subject], None], subject: Subject) -> None:
+def _run_one(report: CheckReport, fn: Callable[[Any], None], subject: Any) -> None:
     name = _check_name(fn)
     try:
         fn(subject)
@@ -508,12 +508,27 @@ def check_forecaster(
     >>> check_forecaster(Theta, params={"deseasonalize": False}).passed
     True
     """
-    unknown = sorted(set(only or ()) - set(CHECKS))
-    if unknown:
-        raise ValueError(f"only: unknown check {unknown[0]!r}; expected some of {CHECKS}")
-    chosen = [fn for fn in _CHECK_FUNCTIONS if only is None or _check_name(fn) in only]
+    chosen = _chosen(_CHECK_FUNCTIONS, only)
     subject = make_subject(obj_or_factory, params=params, season=season, horizon=horizon, y=y)
-    report = CheckReport(subject.label)
+    return _run_checks(CheckReport(subject.label), chosen, subject, "check_forecaster",
+                       raise_on_failure)
+
+
+def _chosen(functions: Sequence[Callable[..., None]], only: tuple[str, ...] | None
+            ) -> list[Callable[..., None]]:
+    """The check functions that ``only`` names (all when None); an unknown name is an error."""
+    names = tuple(_check_name(fn) for fn in functions)
+    unknown = sorted(set(only or ()) - set(names))
+    if unknown:
+        raise ValueError(f"only: unknown check {unknown[0]!r}; expected some of {names}")
+    return [fn for fn in functions if only is None or _check_name(fn) in only]
+
+
+def _run_checks(report: CheckReport, chosen: list[Callable[..., None]], subject: Any,
+                title: str, raise_on_failure: bool) -> CheckReport:
+    """Build the subject's forecaster, run ``chosen`` on it into ``report`` (every check fails
+    when the forecaster cannot be built) and, with ``raise_on_failure``, raise an
+    ``AssertionError`` naming ``title`` and every failed check."""
     try:
         subject.fresh()
     except Exception as exc:
@@ -525,7 +540,7 @@ def check_forecaster(
     if raise_on_failure and report.failed:
         details = "; ".join(f"{r.name} ({r.message})" for r in report.checks if r.status == "fail")
         raise AssertionError(
-            f"check_forecaster({subject.label}): failed checks: {', '.join(report.failed)} "
+            f"{title}({subject.label}): failed checks: {', '.join(report.failed)} "
             f"-- {details}"
         )
     return report

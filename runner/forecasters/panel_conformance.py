@@ -52,10 +52,12 @@ import numpy as np
 
 from runner.forecasters.conformance import (
     CheckReport,
-    CheckResult,
+    _check_name,
     _CheckFailed,
+    _chosen,
     _differs,
     _params,
+    _run_checks,
     _same,
     _Skip,
     check_clone_equal_params,
@@ -213,10 +215,6 @@ _CHECK_FUNCTIONS: list[Callable[[PanelSubject], None]] = []
 def _panel_check(fn: Callable[[PanelSubject], None]) -> Callable[[PanelSubject], None]:
     _CHECK_FUNCTIONS.append(fn)
     return fn
-
-
-def _check_name(fn: Callable[..., None]) -> str:
-    return fn.__name__.removeprefix("check_")
 
 
 @_panel_check
@@ -495,20 +493,6 @@ class PanelCheckReport(CheckReport):
         return str(super().__str__()).replace("check_forecaster:", "check_panel_forecaster:", 1)
 
 
-def _run_one(report: CheckReport, fn: Callable[[Any], None], subject: PanelSubject) -> None:
-    name = _check_name(fn)
-    try:
-        fn(subject)
-    except _Skip as exc:
-        report.checks.append(CheckResult(name, "skip", str(exc)))
-    except _CheckFailed as exc:
-        report.checks.append(CheckResult(name, "fail", str(exc)))
-    except Exception as exc:
-        report.checks.append(CheckResult(name, "fail", f"raised {type(exc).__name__}: {exc}"))
-    else:
-        report.checks.append(CheckResult(name, "pass"))
-
-
 def make_panel_subject(
     obj_or_factory: Any,
     *,
@@ -560,26 +544,9 @@ def check_panel_forecaster(
     :data:`PANEL_CHECKS`). With ``raise_on_failure`` an ``AssertionError`` lists the failed
     checks and why.
     """
-    unknown = sorted(set(only or ()) - set(PANEL_CHECKS))
-    if unknown:
-        raise ValueError(f"only: unknown check {unknown[0]!r}; expected some of {PANEL_CHECKS}")
-    chosen = [fn for fn in _CHECK_FUNCTIONS if only is None or _check_name(fn) in only]
+    chosen = _chosen(_CHECK_FUNCTIONS, only)
     subject = make_panel_subject(obj_or_factory, params=params, season=season, horizon=horizon,
                                  panel=panel)
-    report = PanelCheckReport(subject.label)
-    try:
-        subject.fresh()
-    except Exception as exc:
-        msg = f"building the forecaster raised {type(exc).__name__}: {exc}"
-        report.checks = [CheckResult(_check_name(fn), "fail", msg) for fn in chosen]
-    else:
-        with _one_thread():
-            for fn in chosen:
-                _run_one(report, fn, subject)
-    if raise_on_failure and report.failed:
-        details = "; ".join(f"{r.name} ({r.message})" for r in report.checks if r.status == "fail")
-        raise AssertionError(
-            f"check_panel_forecaster({subject.label}): failed checks: "
-            f"{', '.join(report.failed)} -- {details}"
-        )
-    return report
+    with _one_thread():
+        return _run_checks(PanelCheckReport(subject.label), chosen, subject,
+                           "check_panel_forecaster", raise_on_failure)
