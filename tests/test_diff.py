@@ -267,19 +267,25 @@ def _rewrite(folder: Path, edit_csv=None, platform=None) -> None:
         (folder / "manifest.json").write_text(json.dumps(man))
 
 
-def test_a_platform_change_is_named_and_noise_is_within_tolerance(
-    tmp_path: Path, capsys: pytest.CaptureFixture[str]
-) -> None:
+def _two_kernels(tmp_path: Path) -> tuple[Path, Path]:
+    """Two copies of one results folder, recorded on SkylakeX and on Haswell."""
     a = write_folder(tmp_path / "a", OLD_SHOPS, "aaaa1111", ["arima"])
     b = tmp_path / "b"
     shutil.copytree(a, b)
+    _rewrite(a, platform=PLATFORM)
     other = json.loads(json.dumps(PLATFORM))
     other["blas"][0]["kernel"] = "Haswell"
-    _rewrite(a, platform=PLATFORM)
-    # arima's mase 0.8 -> 0.804 (+0.5%) and mae 8 -> 7.96 (-0.5%): within 1%
+    _rewrite(b, platform=other)
+    return a, b
+
+
+def test_a_platform_change_is_named_and_noise_is_within_tolerance(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str]
+) -> None:
+    a, b = _two_kernels(tmp_path)
+    # arima's mase 0.8 -> 0.804 (+0.5%) and mae 8 -> 7.96 (-0.5%): within 2%
     _rewrite(b, lambda t: t.replace("shops,1,arima,arima,candidate,4,5,20,0,8,1.5,0.8,",
-                                    "shops,1,arima,arima,candidate,4,5,20,0,7.96,1.5,0.804,"),
-             platform=other)
+                                    "shops,1,arima,arima,candidate,4,5,20,0,7.96,1.5,0.804,"))
     d = compare(Results.load(str(a)), Results.load(str(b)))
     assert d.platform_changes == [
         "BLAS openblas 0.3.31 SkylakeX -> openblas 0.3.31 Haswell"]
@@ -372,13 +378,7 @@ def test_segment_noise_is_within_tolerance_like_the_leaderboard(
     # Measured on the demo under two OpenBLAS kernels: every segment row's mase moved by far
     # less than the 2% tolerance, two candidates within noise of each other swapped places,
     # and diff called the run changed although the leaderboard itself was within tolerance.
-    a = write_folder(tmp_path / "a", OLD_SHOPS, "aaaa1111", ["arima"])
-    b = tmp_path / "b"
-    shutil.copytree(a, b)
-    _rewrite(a, platform=PLATFORM)
-    other = json.loads(json.dumps(PLATFORM))
-    other["blas"][0]["kernel"] = "Haswell"
-    _rewrite(b, platform=other)
+    a, b = _two_kernels(tmp_path)
     _segments(a, [("arima", 1, "candidate", 0.94039, True),
                   ("theta", 2, "candidate", 0.94040, True),
                   ("seasonal_naive", 3, "baseline", 1.0, False)])
@@ -417,13 +417,7 @@ def test_segment_noise_is_within_tolerance_like_the_leaderboard(
 def test_a_small_segment_gets_the_tolerance_of_a_mean_over_fewer_series(tmp_path: Path) -> None:
     # A mean over n series of independent per-series noise moves by 1/sqrt(n) (common
     # practice): a segment of 1 of the dataset's 4 series gets twice the leaderboard's 2%.
-    a = write_folder(tmp_path / "a", OLD_SHOPS, "aaaa1111", ["arima"])
-    b = tmp_path / "b"
-    shutil.copytree(a, b)
-    _rewrite(a, platform=PLATFORM)
-    other = json.loads(json.dumps(PLATFORM))
-    other["blas"][0]["kernel"] = "Haswell"
-    _rewrite(b, platform=other)
+    a, b = _two_kernels(tmp_path)
     _segments(a, [("arima", 1, "candidate", 0.8, True)], series=1)
     for new, noise in ((0.8 * 1.03, True), (0.8 * 1.05, False)):  # +3%, +5%
         _segments(b, [("arima", 1, "candidate", new, True)], series=1)
