@@ -158,18 +158,21 @@ def run(
         _show_notes(ev, quiet)
         board = build_leaderboard(ev)
         return RunResult(board, target, build_manifest(ev), ev)
+    from contextlib import nullcontext
     from functools import partial
 
     from runner.report.page import build_report
+    from runner.report.painter import start_painter
 
-    # forecasts.parquet is written chunk by chunk while the run computes; the rest after
-    with Staging(target) as stage:
+    # forecasts.parquet is written chunk by chunk while the run computes; the rest after.
+    # The report's plots are drawn by a process started now, which loads matplotlib meanwhile.
+    with (start_painter() if report else nullcontext()) as painter, Staging(target) as stage:
         ev = evaluate(plan, use_cache=use_cache, jobs=jobs, quiet=quiet,
                       sink=stage.forecast_sink(plan))
         _show_notes(ev, quiet)
         board = build_leaderboard(ev)
         # plots whose data did not change are copied from the results being replaced
-        finish = partial(build_report, previous=target) if report else None
+        finish = partial(build_report, previous=target, painter=painter) if report else None
         man = stage.commit(ev, board, finish)
     return RunResult(board, target, man, ev)
 

@@ -21,7 +21,7 @@ import pytest
 
 import runner
 from runner.config import config_hash
-from runner.output import writer
+from runner.output import parquet_files
 from runner.pipeline import prepare
 from runner.scoring.evaluate import evaluate, series_chunks
 from runner.scoring.metrics import running_sum
@@ -68,7 +68,7 @@ def runs(tmp_path_factory: pytest.TempPathFactory) -> list[Path]:
     folder = tmp_path_factory.mktemp("chunks")
     outs = []
     with pytest.MonkeyPatch.context() as mp:
-        mp.setattr(writer, "GROUP_SERIES", 3)
+        mp.setattr(parquet_files, "GROUP_SERIES", 3)
         for chunk in CHUNKS:
             out = folder / f"out{chunk}"
             runner.run(_write(folder, chunk), out_dir=out)
@@ -179,3 +179,46 @@ def test_scoring_prints_nothing_and_returns_its_notes(tmp_path: Path, capfd) -> 
     a = ev.datasets[0]
     assert any("1 missing actual(s)" in note for note in a.notes)
     assert any("undefined" in w for w in a.warnings)  # the constant series' mase
+
+
+def test_a_reader_of_a_few_series_reads_their_row_groups_only(tmp_path: Path) -> None:
+    from runner.output.reader import ResultsFolder, _row_groups, read_arrow
+
+    with pytest.MonkeyPatch.context() as mp:
+        mp.setattr(parquet_files, "GROUP_ROWS", 8)  # two tasks (horizon 4) per row group
+        runner.run(_write(tmp_path, 10_000), out_dir=tmp_path / "out")
+    path = tmp_path / "out" / "forecasts.parquet"
+    file = pq.ParquetFile(path)
+    sizes = [file.metadata.row_group(g).num_rows for g in range(file.metadata.num_row_groups)]
+    assert max(sizes) == 8
+    wanted = [("dataset", "=", "a"), ("forecaster", "=", "naive"), ("series", "in", ["a3"])]
+    groups = _row_groups(file.metadata, wanted)
+    # a3's tasks lie in one or two groups of two tasks, out of many
+    assert 0 < len(groups) <= 2 < file.metadata.num_row_groups // 4
+    read = read_arrow(ResultsFolder.open(tmp_path / "out"), "forecasts.parquet", None, wanted)
+    frame = _decoded(path)
+    expected = frame[(frame["dataset"] == "a") & (frame["forecaster"] == "naive")
+                     & (frame["series"] == "a3")]
+    got = read.to_pandas()
+    assert len(got) == len(expected) > 0
+    assert np.array_equal(got["forecast"].to_numpy(), expected["forecast"].to_numpy())
+
+
+def test_a_failed_forecasts_write_leaves_nothing_behind(tmp_path: Path) -> None:
+    cfg = _write(tmp_path, 2)
+    calls = []
+
+    def full_disk(self, table, group_rows=None):
+        calls.append(1)
+        if len(calls) == 2:  # the second block, written on the sink's thread
+            raise OSError(28, "No space left on device")
+        return original(self, table, group_rows)
+
+    original = parquet_files.ParquetFile.write
+    with pytest.MonkeyPatch.context() as mp:
+        mp.setattr(parquet_files.ParquetFile, "write", full_disk)
+        with pytest.raises(OSError, match="No space left"):
+            runner.run(cfg, out_dir=tmp_path / "out")
+    assert len(calls) == 2  # it stopped at the failed block
+    assert not (tmp_path / "out").exists()
+    assert [p.name for p in tmp_path.iterdir() if p.name.startswith(".")] == []

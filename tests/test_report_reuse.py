@@ -23,7 +23,11 @@ from runner.report.reuse import KEY_FIELD, NOTES_FIELD, png_text
 
 @pytest.fixture
 def draws(monkeypatch: pytest.MonkeyPatch) -> list[str]:
-    """The titles of the plots drawn (each call of Sketch.draw), in order."""
+    """The titles of the plots drawn (each call of Sketch.draw), in order. Runs draw in this
+    process here (no painter process), where the calls can be counted."""
+    from runner.report import painter
+
+    monkeypatch.setattr(painter, "can_paint_aside", lambda: False)
     seen: list[str] = []
     original = Sketch.draw
 

@@ -72,7 +72,7 @@ def chunk_series(plan: Plan) -> int:
 def estimate(plan: Plan) -> Estimate:
     """The sizes of forecasts.parquet and scores.parquet (and the small files) and the peak
     memory of running ``plan``."""
-    from runner.output.writer import kept_forecasts
+    from runner.output.parquet_files import kept_forecasts
 
     cfg = plan.config
     h, n_levels = cfg.horizon, len(cfg.intervals)

@@ -18,7 +18,6 @@ import shutil
 import socket
 import tempfile
 from collections.abc import Callable, Iterator
-from dataclasses import replace
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
@@ -30,32 +29,15 @@ from runner.config import canonical_json, config_hash
 from runner.errors import PathError
 from runner.forecasters.recorded import manifest_entries
 from runner.forecasters.registry import identity
-from runner.output.reader import interval_columns
+from runner.output.parquet_files import ForecastSink, ParquetFile, text_column, time_column
 from runner.output.tables import to_csv_text, to_markdown
 from runner.scoring import metrics as M
-from runner.scoring.chunks import chunk_plan
 from runner.scoring.derived import selection_frame
-from runner.scoring.results import Chunk, Evaluation, ForecasterResult
+from runner.scoring.results import Chunk, Evaluation
 from runner.windows.plan import DatasetPlan, Plan
 
 if TYPE_CHECKING:
     from runner.data.panel import Panel
-
-
-def _dict_array(codes: np.ndarray, labels: list[str]):
-    """A dictionary-encoded text column: ``codes`` index ``labels``. Repeated labels (two
-    datasets may name their series alike) are merged first, since readers refuse a dictionary
-    with repeated values; otherwise the codes are used as they are."""
-    import pyarrow as pa
-    import pyarrow.compute as pc
-
-    text = pa.array(labels, type=pa.string())
-    codes = np.asarray(codes)
-    if len(pc.unique(text)) != len(text):
-        unique, first_of = np.unique(np.asarray(labels, dtype=object).astype(str),
-                                     return_inverse=True)
-        codes, text = first_of[codes], pa.array(unique, type=pa.string())
-    return pa.DictionaryArray.from_arrays(pa.array(codes.astype(np.int32, copy=False)), text)
 
 
 def _versions() -> dict[str, str]:
@@ -180,21 +162,6 @@ def manifest(ev: Evaluation) -> dict[str, Any]:
     return man
 
 
-def _times(panels: list[Panel], d: int, position: np.ndarray) -> Any:
-    """Times of positions ``position`` of panel ``d`` as an Arrow column, typed for the whole
-    run: timestamps when every dataset has dates, integers when every dataset has integer
-    times, so readers get real times; text (as every other output prints them) when a run
-    mixes both."""
-    import pyarrow as pa
-
-    kinds = {p.times.dtype.kind for p in panels}
-    panel = panels[d]
-    if kinds <= {"M"} or kinds <= {"i"}:
-        dtype = "datetime64[ns]" if kinds == {"M"} else np.int64
-        return pa.array(panel.times[position].astype(dtype, copy=False))
-    return pa.array(panel.format_time(position).astype(str))
-
-
 def _score_blocks(ev: Evaluation, cols: list[str]) -> Iterator[Any]:
     """scores.parquet, one Arrow table per dataset and forecaster (task order)."""
     import pyarrow as pa
@@ -204,15 +171,15 @@ def _score_blocks(ev: Evaluation, cols: list[str]) -> Iterator[Any]:
         dp = dr.plan
         n = dp.n_tasks
         keys = _series_labels(dp.panel)
-        series = _dict_array(dp.series, keys)
+        series = text_column(dp.series, keys)
         fold = pa.array(dp.fold.astype(np.int32))
         # the origin is the time of the fold's last training observation
-        origin = _times(panels, d, dp.ends - 1)
+        origin = time_column(panels, d, dp.ends - 1)
         for r in dr.results:
             data = {
-                "dataset": _dict_array(np.zeros(n, dtype=np.int32), [dp.panel.name]),
+                "dataset": text_column(np.zeros(n, dtype=np.int32), [dp.panel.name]),
                 "series": series,
-                "forecaster": _dict_array(np.zeros(n, dtype=np.int32), [r.spec.name]),
+                "forecaster": text_column(np.zeros(n, dtype=np.int32), [r.spec.name]),
                 "fold": fold,
                 "origin": origin,
             }
@@ -237,186 +204,6 @@ def scores_table(ev: Evaluation, cols: list[str]) -> Any:
     if not blocks:
         return pa.table({c: pa.array([], type=pa.float64()) for c in cols})
     return pa.concat_tables(blocks)
-
-
-#: Parquet compression of every table written: zstd packs the forecasts' repeated times,
-#: folds and steps tightly and the float64 values (kept as they are, for exactness) a little.
-COMPRESSION = "zstd"
-#: Columns written dictionary-encoded: the repeated text. Numbers are not: on float64 the
-#: dictionary rarely pays, and trying it costs most of the writing time.
-DICTIONARY_COLUMNS = ["dataset", "series", "forecaster"]
-
-
-def kept_forecasts(mode: str, spec_role: str, name: str, reference: str) -> bool:
-    """Whether ``output.forecasts: mode`` keeps a forecaster's forecasts: ``all``; the
-    ``compared`` ones, every candidate and the reference; ``none``."""
-    if mode == "all":
-        return True
-    if mode == "compared":
-        return spec_role == "candidate" or name == reference
-    return False
-
-
-def _forecast_blocks(plan: Plan, chunk: Chunk) -> Iterator[Any]:
-    """forecasts.parquet rows of one chunk, one Arrow table per kept forecaster: per task
-    (series order) its ``horizon`` steps."""
-    import pyarrow as pa
-
-    cfg = plan.config
-    h = cfg.horizon
-    dp = chunk.plan
-    panels = [x.panel for x in plan.datasets]
-    n = dp.n_tasks
-    steps = np.arange(h)
-    # the chunk's own series form the dictionary of its row groups
-    present, local = np.unique(dp.series, return_inverse=True)
-    labels = [str(dp.panel.keys[i]) for i in present]
-    series = _dict_array(np.repeat(local, h), labels)
-    fold = pa.array(np.repeat(dp.fold, h).astype(np.int32))
-    origin = _times(panels, chunk.dataset, np.repeat(dp.ends - 1, h))
-    step = pa.array(np.tile(steps + 1, n).astype(np.int32))
-    time = _times(panels, chunk.dataset, (dp.test_starts[:, None] + steps[None, :]).ravel())
-    actual = pa.array(chunk.actual.ravel())
-    bounds = [interval_columns(lv) for lv in cfg.intervals]
-    for r in chunk.results:
-        if not kept_forecasts(cfg.output.forecasts, r.spec.role, r.spec.name, dp.reference):
-            continue
-        assert r.point is not None and r.lower is not None and r.upper is not None
-        data = {
-            "dataset": _dict_array(np.zeros(n * h, dtype=np.int32), [dp.panel.name]),
-            "series": series,
-            "forecaster": _dict_array(np.zeros(n * h, dtype=np.int32), [r.spec.name]),
-            "fold": fold,
-            "origin": origin,
-            "step": step,
-            "time": time,
-            "actual": actual,
-            "forecast": pa.array(r.point.ravel().astype(float, copy=False)),
-        }
-        for i, (lo, hi) in enumerate(bounds):
-            data[lo] = pa.array(r.lower[i].ravel().astype(float, copy=False))
-            data[hi] = pa.array(r.upper[i].ravel().astype(float, copy=False))
-        yield pa.table(data)
-
-
-class _TableFile:
-    """A Parquet file written a table (a row group or more) at a time."""
-
-    def __init__(self, path: Path) -> None:
-        self.path = path
-        self.writer: Any = None
-
-    def write(self, table: Any) -> None:
-        import pyarrow.parquet as pq
-
-        if self.writer is None:
-            self.writer = pq.ParquetWriter(self.path, table.schema, compression=COMPRESSION,
-                                           use_dictionary=DICTIONARY_COLUMNS)
-        self.writer.write_table(table)
-
-    def close(self, empty: Any = None) -> None:
-        """Finish the file; ``empty`` (a table without rows) gives a file nothing was written
-        to its columns."""
-        if self.writer is None and empty is not None:
-            self.write(empty)
-        if self.writer is not None:
-            self.writer.close()
-            self.writer = None
-
-
-#: Series per row group of forecasts.parquet (one row group per block of series and
-#: forecaster). A property of the file, not of the run's chunks: the file is the same bytes
-#: whatever ``execution.chunk`` is, and a reader that wants a few series reads a few groups.
-GROUP_SERIES = 10_000
-
-
-class ForecastSink:
-    """Writes forecasts.parquet as :func:`runner.scoring.evaluate.evaluate` hands the chunks
-    over: the rows of each block of :data:`GROUP_SERIES` series (by series number) are written
-    as soon as the block is complete, so that no more than a chunk and a block of forecasts
-    are ever in memory."""
-
-    def __init__(self, plan: Plan, path: Path) -> None:
-        self.plan = plan
-        self.file = _TableFile(path)
-        self.pending: list[Chunk] = []  # the parts of the block being gathered
-        self.block: tuple[int, int] | None = None  # its (dataset, block number)
-
-    def __call__(self, chunk: Chunk) -> None:
-        n = chunk.plan.n_tasks
-        if n == 0:
-            return
-        blocks = chunk.plan.series // GROUP_SERIES
-        bounds = [0, *(np.flatnonzero(np.diff(blocks)) + 1).tolist(), n]
-        for lo, hi in zip(bounds[:-1], bounds[1:]):
-            key = (chunk.dataset, int(blocks[lo]))
-            if key != self.block:
-                self._flush()
-                self.block = key
-            self.pending.append(_chunk_part(chunk, lo, hi))
-
-    def close(self) -> None:
-        """Write the last block and finish the file (its columns even without a row)."""
-        self._flush()
-        empty = None
-        if self.file.writer is None:  # no row at all: the columns still say what there is
-            empty = _empty_forecasts(self.plan)
-        self.file.close(empty)
-
-    def _flush(self) -> None:
-        if self.pending:
-            for table in _forecast_blocks(self.plan, _joined(self.pending)):
-                self.file.write(table)
-        self.pending = []
-
-
-def _chunk_part(chunk: Chunk, lo: int, hi: int) -> Chunk:
-    """Tasks ``lo:hi`` of a chunk, forecasts only (views of its arrays)."""
-    if lo == 0 and hi == chunk.plan.n_tasks:
-        return chunk
-    tasks = slice(lo, hi)
-    results = [ForecasterResult(r.spec, r.point[tasks], r.lower[:, tasks], r.upper[:, tasks],
-                                [], [])  # type: ignore[index]
-               for r in chunk.results]
-    return Chunk(chunk.dataset, chunk_plan(chunk.plan, tasks),
-                 slice(chunk.tasks.start + lo, chunk.tasks.start + hi), chunk.actual[tasks],
-                 results, chunk.summary)
-
-
-def _joined(parts: list[Chunk]) -> Chunk:
-    """Consecutive parts of one dataset's tasks as one chunk (forecasts only)."""
-    if len(parts) == 1:
-        return parts[0]
-    first = parts[0]
-
-    def cat(get: Callable[[Any], np.ndarray], axis: int = 0) -> np.ndarray:
-        return np.concatenate([get(p) for p in parts], axis=axis)
-
-    plan = replace(first.plan, **{k: cat(lambda p, k=k: getattr(p.plan, k)) for k in
-                                  ("series", "fold", "origin", "starts", "ends", "test_starts")})
-    results = [
-        ForecasterResult(r.spec, cat(lambda p, i=i: p.results[i].point),
-                         cat(lambda p, i=i: p.results[i].lower, 1),
-                         cat(lambda p, i=i: p.results[i].upper, 1), [], [])
-        for i, r in enumerate(first.results)
-    ]
-    tasks = slice(first.tasks.start, parts[-1].tasks.stop)
-    return Chunk(first.dataset, plan, tasks, cat(lambda p: p.actual), results, first.summary)
-
-
-def _empty_forecasts(plan: Plan) -> Any:
-    import pyarrow as pa
-
-    text = pa.dictionary(pa.int32(), pa.string())
-    kinds = {dp.panel.times.dtype.kind for dp in plan.datasets}
-    when = (pa.timestamp("ns") if kinds <= {"M"} and kinds else
-            pa.int64() if kinds <= {"i"} and kinds else pa.string())
-    fields = [("dataset", text), ("series", text), ("forecaster", text), ("fold", pa.int32()),
-              ("origin", when), ("step", pa.int32()), ("time", when), ("actual", pa.float64()),
-              ("forecast", pa.float64())]
-    for lv in plan.config.intervals:
-        fields += [(c, pa.float64()) for c in interval_columns(lv)]
-    return pa.table({name: pa.array([], type=t) for name, t in fields})
 
 
 def _horizon_frame(ev: Evaluation, cols: list[str]) -> pd.DataFrame:
@@ -482,10 +269,7 @@ class Staging:
     def abort(self) -> None:
         """Remove the temporary folder; the previous results stay as they were."""
         if self.sink is not None:
-            try:
-                self.sink.close()
-            except Exception:  # the folder goes anyway
-                pass
+            self.sink.abort()
         shutil.rmtree(self.tmp, ignore_errors=True)
 
     def forecast_sink(self, plan: Plan) -> ForecastSink | None:
@@ -506,8 +290,6 @@ class Staging:
         cfg = ev.plan.config
         cols = M.columns(cfg.metrics, tuple(cfg.intervals))
         tmp = self.tmp
-        if self.sink is not None:
-            self.sink.close()
         man = manifest(ev)
         (tmp / "leaderboard.csv").write_text(to_csv_text(board), encoding="utf-8")
         (tmp / "leaderboard.md").write_text(
@@ -519,7 +301,7 @@ class Staging:
         from runner.output.segments import write_segment_files
 
         write_segment_files(ev, tmp, board)
-        scores = _TableFile(tmp / "scores.parquet")
+        scores = ParquetFile(tmp / "scores.parquet")
         for table in _score_blocks(ev, cols):  # a row group per dataset and forecaster
             scores.write(table)
         scores.close(scores_table(ev, cols) if scores.writer is None else None)
@@ -534,6 +316,8 @@ class Staging:
         from runner.output.history import append_history
 
         append_history(tmp, man, board)
+        if self.sink is not None:  # its last block was written meanwhile, on its thread
+            self.sink.close()
         if finish is not None:
             finish(tmp)
         _swap_in(tmp, self.out_dir)

@@ -51,6 +51,8 @@ from runner.report.tables import (
 if TYPE_CHECKING:  # the command line imports this module at start; pandas loads when used
     import pandas as pd
 
+    from runner.report.painter import Painter
+
 REPORT = "report.html"
 PLOTS = "plots"
 
@@ -73,10 +75,10 @@ class Plot:
         self.sketch = sketch
 
 
-def render(plots: list[Plot], places: list[Path]) -> int:
+def render(plots: list[Plot], places: list[Path], painter: Painter | None = None) -> int:
     """Give every plot with a sketch its PNG and notes: the PNG of the same name and key from
-    the first of ``places`` (plot folders) that has one, else a new drawing. Returns how many
-    plots were drawn."""
+    the first of ``places`` (plot folders) that has one, else a new drawing (by ``painter``
+    when given and able, else here). Returns how many plots were drawn."""
     from runner.report.reuse import plot_key, reusable, stamp
 
     todo = []
@@ -89,7 +91,13 @@ def render(plots: list[Plot], places: list[Path]) -> int:
             p.png, p.notes = found
         else:
             todo.append((p, key))
-    if todo:
+    painted = None
+    if todo and painter is not None:
+        painted = painter.paint([(p.sketch, key) for p, key in todo])  # type: ignore[misc]
+    if painted is not None:
+        for (p, _), (png, notes) in zip(todo, painted):
+            p.png, p.notes = png, notes
+    elif todo:
         from matplotlib import rc_context
 
         with rc_context(RC):
@@ -315,11 +323,13 @@ def _atomic_write(path: Path, data: bytes) -> None:
         raise
 
 
-def build_report(out_dir: Path, previous: Path | None = None) -> Path:
+def build_report(out_dir: Path, previous: Path | None = None,
+                 painter: Painter | None = None) -> Path:
     """Write ``report.html`` and ``plots/*.png`` for the results folder ``out_dir``.
 
     ``previous`` is a results folder whose plots may be reused (a run builds the report in a
     new folder that replaces ``previous``); the plots already in ``out_dir`` may be reused too.
+    ``painter`` draws the plots in a process of its own (:mod:`runner.report.painter`).
     Returns the path of report.html. Raises DataError when leaderboard.csv or manifest.json
     is missing or any file present is damaged; nothing is written in that case.
     """
@@ -331,7 +341,7 @@ def build_report(out_dir: Path, previous: Path | None = None) -> Path:
         per_view.append((view, _dataset_plots(view, results) + segment_plots, segment_html))
     plots = [p for _, mine, _ in per_view for p in mine]
     places = [out_dir / PLOTS] + ([Path(previous) / PLOTS] if previous is not None else [])
-    render(plots, places)
+    render(plots, places, painter)
     sections = [
         f"<h2>dataset {html.escape(view.dataset)}</h2>"
         f'<div class="card">{_summary_html(view)}{leaderboard_html(view)}'

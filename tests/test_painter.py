@@ -1,0 +1,103 @@
+"""The painter: plots drawn in a process of their own are the very bytes drawn in the run's
+process, and anything wrong with the painter falls back to drawing in the run's process.
+
+The results folder is the synthetic one of tests/test_report.py (invented numbers, for these
+tests only); the check is castgrid against itself (the same drawing code in two processes).
+"""
+
+from __future__ import annotations
+
+import os
+import signal
+import sys
+from pathlib import Path
+
+import pytest
+from test_report import make_results
+
+from runner.report import painter as painter_module
+from runner.report.page import build_report
+from runner.report.plots import Drawn, Sketch
+
+pytestmark = pytest.mark.skipif(not sys.platform.startswith("linux"),
+                                reason="the painter is a fork: Linux only")
+
+
+def _files(folder: Path) -> dict[str, bytes]:
+    return {p.name: p.read_bytes() for p in [folder / "report.html",
+                                              *sorted((folder / "plots").glob("*.png"))]}
+
+
+@pytest.fixture()
+def here(tmp_path: Path) -> dict[str, bytes]:
+    """The report of the synthetic folder, drawn in this process."""
+    folder = make_results(tmp_path / "here")
+    build_report(folder)
+    return _files(folder)
+
+
+def _fresh(tmp_path: Path, name: str) -> Path:
+    return make_results(tmp_path / name)  # the same seed: the same folder
+
+
+def test_plots_drawn_aside_are_the_bytes_drawn_here(tmp_path: Path,
+                                                     here: dict[str, bytes]) -> None:
+    folder = _fresh(tmp_path, "aside")
+    painter = painter_module._fork_painter()
+    assert painter is not None
+    try:
+        build_report(folder, painter=painter)
+        assert not painter.closed  # it drew them: no fallback happened
+    finally:
+        painter.close()
+    aside = _files(folder)
+    assert len(aside) >= 5  # report.html and at least four plots
+    assert aside == here
+
+
+def test_a_dead_painter_falls_back_to_drawing_here(tmp_path: Path,
+                                                    here: dict[str, bytes]) -> None:
+    folder = _fresh(tmp_path, "dead")
+    painter = painter_module._fork_painter()
+    assert painter is not None
+    os.kill(painter.pid, signal.SIGKILL)
+    os.waitpid(painter.pid, 0)
+    try:
+        build_report(folder, painter=painter)
+    finally:
+        painter.close()
+    assert painter.closed
+    assert _files(folder) == here
+
+
+def _fails(data: dict) -> Drawn:
+    raise ValueError(f"cannot draw {data['what']}")
+
+
+def test_a_drawing_that_fails_aside_is_drawn_here_where_its_error_shows() -> None:
+    painter = painter_module._fork_painter()
+    assert painter is not None
+    try:
+        assert painter.paint([(Sketch({"what": "this"}, _fails), "key")]) is None
+        assert painter.closed
+    finally:
+        painter.close()
+    with pytest.raises(ValueError, match="cannot draw this"):
+        Sketch({"what": "this"}, _fails).draw()
+
+
+def test_the_painter_is_reaped_however_the_block_ends(monkeypatch: pytest.MonkeyPatch) -> None:
+    monkeypatch.setattr(painter_module, "can_paint_aside", lambda: True)
+    with pytest.raises(RuntimeError), painter_module.start_painter() as painter:
+        assert painter is not None
+        pid = painter.pid
+        raise RuntimeError("the run failed")
+    with pytest.raises(ChildProcessError):  # reaped: no such child any more
+        os.waitpid(pid, os.WNOHANG)
+
+
+def test_no_painter_on_one_core(monkeypatch: pytest.MonkeyPatch) -> None:
+    monkeypatch.setattr(painter_module, "_usable_cores", lambda: 1)
+    assert not painter_module.can_paint_aside()
+    with painter_module.start_painter() as painter:
+        assert painter is None
