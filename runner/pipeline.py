@@ -11,7 +11,7 @@ import sys
 from dataclasses import dataclass
 from functools import cached_property
 from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import pandas as pd
 
@@ -19,6 +19,9 @@ from runner.config import Config
 from runner.scoring.evaluate import Evaluation, evaluate
 from runner.scoring.leaderboard import build_leaderboard
 from runner.windows.plan import Plan, build_plan
+
+if TYPE_CHECKING:
+    from runner.report.painter import Painter
 
 
 @dataclass
@@ -139,6 +142,7 @@ def run(
     jobs: int | None = None,
     quiet: bool = True,
     report: bool = True,
+    painter: Painter | None = None,
 ) -> RunResult:
     """Run an evaluation from a config file path (or a parsed config, or a plan).
 
@@ -146,6 +150,9 @@ def run(
     per-task scores as DataFrames. Bad config or data raise :class:`runner.ConfigError` /
     :class:`runner.DataError` before anything is written, and a results folder or cache that
     cannot be written raises :class:`runner.PathError` before anything is computed.
+
+    ``painter`` draws the report's plots in a process of its own
+    (:mod:`runner.report.painter`); without one, the run starts its own where it can.
     """
     from runner.output.writer import Staging
     from runner.output.writer import manifest as build_manifest
@@ -166,7 +173,8 @@ def run(
 
     # forecasts.parquet is written chunk by chunk while the run computes; the rest after.
     # The report's plots are drawn by a process started now, which loads matplotlib meanwhile.
-    with (start_painter() if report else nullcontext()) as painter, Staging(target) as stage:
+    aside = start_painter() if report and painter is None else nullcontext(painter)
+    with aside as painter, Staging(target) as stage:
         ev = evaluate(plan, use_cache=use_cache, jobs=jobs, quiet=quiet,
                       sink=stage.forecast_sink(plan))
         _show_notes(ev, quiet)

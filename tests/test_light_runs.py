@@ -67,5 +67,7 @@ def test_warm_rerun_imports_no_fitting_test_or_plotting_library(tmp_path: Path) 
     folder = _folder(tmp_path, only_theta)
     run = "from runner.cli import main; main(['run', 'c.yaml', '--out', 'out', '--quiet'])"
     cold = _loaded(run, folder)
-    assert "statsmodels.tsa" in cold and "matplotlib" in cold  # it fitted and drew
+    # it fitted (and drew: in the painter process where there is one, else here)
+    assert "statsmodels.tsa" in cold
+    assert len(list((folder / "out" / "plots").glob("*.png"))) >= 4
     assert _loaded(run, folder) == []  # everything cached, every plot unchanged

@@ -5,6 +5,10 @@ from __future__ import annotations
 import argparse
 import sys
 import time
+from typing import TYPE_CHECKING
+
+if TYPE_CHECKING:
+    from runner.report.painter import Painter
 
 
 def add_arguments(parser: argparse.ArgumentParser) -> None:
@@ -18,6 +22,16 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
 
 def main(args: argparse.Namespace) -> int:
     """Exit 0 when every task succeeded, 3 when some failed (2 on bad input, raised)."""
+    from runner.report.painter import start_painter
+
+    t0 = time.perf_counter()
+    # The report's painter starts first, so that it loads matplotlib while this process
+    # loads its own libraries and the data (runner.report.painter).
+    with start_painter() as painter:
+        return _run(args, t0, painter)
+
+
+def _run(args: argparse.Namespace, t0: float, painter: Painter | None) -> int:
     from runner.cli._summary import summarise
     from runner.config.model import check_jobs
     from runner.errors import ConfigError
@@ -30,7 +44,6 @@ def main(args: argparse.Namespace) -> int:
             check_jobs(args.jobs)
         except ValueError as exc:
             raise ConfigError(f"--jobs: {exc}") from None
-    t0 = time.perf_counter()
     plan = prepare(args.config)
     if not args.quiet:
         for note in plan.all_notes():
@@ -43,7 +56,8 @@ def main(args: argparse.Namespace) -> int:
             for s in summarise(dp.skipped):
                 print(f"castgrid: warning: {dp.panel.name}: skipped {s}", file=sys.stderr)
     result = run(
-        plan, out_dir=args.out, use_cache=not args.no_cache, jobs=args.jobs, quiet=args.quiet
+        plan, out_dir=args.out, use_cache=not args.no_cache, jobs=args.jobs, quiet=args.quiet,
+        painter=painter,
     )
     cfg = plan.config
     print(to_terminal(result.leaderboard, cfg.rank_by))
