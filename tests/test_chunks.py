@@ -222,3 +222,21 @@ def test_a_failed_forecasts_write_leaves_nothing_behind(tmp_path: Path) -> None:
     assert len(calls) == 2  # it stopped at the failed block
     assert not (tmp_path / "out").exists()
     assert [p.name for p in tmp_path.iterdir() if p.name.startswith(".")] == []
+
+
+def test_forecasters_computed_side_by_side_give_the_same_bits(tmp_path: Path) -> None:
+    from runner.scoring import evaluate as evaluate_module
+
+    plan = prepare(_write(tmp_path, 3))
+    evs = []
+    for threshold in (0, 10**12):  # every chunk on threads; none
+        with pytest.MonkeyPatch.context() as mp:
+            mp.setattr(evaluate_module, "THREADED_VALUES", threshold)
+            evs.append(evaluate(plan, quiet=True))
+    for d in range(len(plan.datasets)):
+        for a, b in zip(evs[0].datasets[d].results, evs[1].datasets[d].results):
+            assert a.spec.name == b.spec.name
+            for col, sc in a.scores.items():
+                assert np.array_equal(sc.per_task, b.scores[col].per_task, equal_nan=True)
+                assert np.array_equal(sc.step_sum, b.scores[col].step_sum)
+            assert np.array_equal(a.versus_reference, b.versus_reference, equal_nan=True)

@@ -19,6 +19,11 @@ prints, and ``unscored_actuals`` in the manifest).
 
 from __future__ import annotations
 
+import os
+from collections.abc import Callable
+from concurrent.futures import ThreadPoolExecutor
+from typing import TypeVar
+
 import numpy as np
 
 from runner.config import ForecasterSpec
@@ -49,6 +54,8 @@ __all__ = ["Chunk", "DatasetResult", "Evaluation", "ForecasterResult", "Sink", "
 
 #: Forecaster index -> its result, for one dataset.
 Results = dict[int, ForecasterResult]
+T = TypeVar("T")
+R = TypeVar("R")
 
 
 def evaluate(
@@ -171,16 +178,18 @@ def _evaluate_dataset(plan: Plan, d: int, whole: Results, sink: Sink | None) -> 
     tally = Tally(cols)
     chunk: Chunk | None = None
     fill = SliceFill(dp.panel.values)  # what it derives from the whole panel, derived once
-    for tasks in spans:
-        sub, summary, results = _forecast_chunk(plan, dp, fill, tasks, whole)
-        carry = {f: gathered[f].carry() for f in dp.forecasters}
-        actual = _score_chunk(plan, sub, summary, results, carry)
-        chunk = Chunk(d, sub, tasks, actual, results, summary)
-        if sink is not None:
-            sink(chunk)
-        tally.add(chunk)
-        for f, r in zip(dp.forecasters, results):
-            gathered[f].add(r)
+    with ThreadPoolExecutor(_threads(len(dp.forecasters)),
+                            thread_name_prefix="castgrid-scoring") as pool:
+        for tasks in spans:
+            sub, summary, results = _forecast_chunk(plan, dp, fill, tasks, whole, pool)
+            carry = {f: gathered[f].carry() for f in dp.forecasters}
+            actual = _score_chunk(plan, sub, summary, results, carry, pool)
+            chunk = Chunk(d, sub, tasks, actual, results, summary)
+            if sink is not None:
+                sink(chunk)
+            tally.add(chunk)
+            for f, r in zip(dp.forecasters, results):
+                gathered[f].add(r)
     assert chunk is not None  # series_chunks yields at least one range
     if len(spans) == 1:  # one chunk: everything as computed, forecasts included
         result = DatasetResult(dp, chunk.actual, chunk.results, chunk.summary)
@@ -193,8 +202,34 @@ def _evaluate_dataset(plan: Plan, d: int, whole: Results, sink: Sink | None) -> 
     return result
 
 
+#: Forecast values (tasks x horizon) of a chunk below which its forecasters are computed one
+#: after the other: for small arrays, handing work to threads costs more than it saves.
+THREADED_VALUES = 100_000
+
+
+def _threads(n_forecasters: int) -> int:
+    """Threads for the per-forecaster work of a chunk: numpy releases Python's lock inside
+    its array loops, so the forecasters of a large chunk are computed side by side."""
+    try:
+        cores = len(os.sched_getaffinity(0))
+    except AttributeError:  # not on Linux
+        cores = os.cpu_count() or 1
+    return max(1, min(n_forecasters, cores, 4))
+
+
+def _each(pool: ThreadPoolExecutor, size: int, work: Callable[[T], R], items: list[T]
+          ) -> list[R]:
+    """``work`` of each item, in order: on the pool's threads when the chunk has ``size``
+    values or more, else here. Each item's work reads shared arrays and writes its own, so
+    the results are the same bits either way."""
+    if size < THREADED_VALUES or len(items) < 2:
+        return [work(x) for x in items]
+    return list(pool.map(work, items))
+
+
 def _forecast_chunk(
-    plan: Plan, dp: DatasetPlan, fill: SliceFill, tasks: slice, whole: Results
+    plan: Plan, dp: DatasetPlan, fill: SliceFill, tasks: slice, whole: Results,
+    pool: ThreadPoolExecutor,
 ) -> tuple[DatasetPlan, SliceSummary, list[ForecasterResult]]:
     """The forecasts of the tasks ``tasks`` of ``dp``: benchmarks and derived candidates
     computed here (``fill``: the panel's values), the engine's results cut from ``whole``;
@@ -202,11 +237,13 @@ def _forecast_chunk(
     horizon, levels = plan.config.horizon, tuple(plan.config.intervals)
     sub = chunk_plan(dp, tasks)
     summary = summarise(fill, sub.starts, sub.ends, sub.panel.season)
+    benchmarks = [f for f in dp.forecasters if is_vectorised(plan.forecasters[f])]
+    made = dict(zip(benchmarks, _each(pool, sub.n_tasks * horizon, lambda f: _baseline_result(
+        plan.forecasters[f], sub, fill, summary, horizon, levels), benchmarks)))
     results: Results = {}
     for f in dp.forecasters:
-        spec = plan.forecasters[f]
-        if is_vectorised(spec):
-            results[f] = _baseline_result(spec, sub, fill, summary, horizon, levels)
+        if f in made:
+            results[f] = made[f]
         elif f in whole:
             results[f] = whole[f] if sub is dp else cut(whole[f], tasks)
     add_derived_dataset(plan, sub, summary, results)  # combinations, selections
@@ -235,7 +272,7 @@ def _baseline_result(
 
 def _score_chunk(
     plan: Plan, sub: DatasetPlan, summary: SliceSummary, results: list[ForecasterResult],
-    carry: dict[int, dict[str, tuple[np.ndarray, np.ndarray]]],
+    carry: dict[int, dict[str, tuple[np.ndarray, np.ndarray]]], pool: ThreadPoolExecutor,
 ) -> np.ndarray:
     """Score every result of a chunk (in place) and return the chunk's actuals (n, H).
 
@@ -250,13 +287,16 @@ def _score_chunk(
     mase_scale = M.scale_mase(summary.seasonal_abs, summary.length, sub.panel.season)
     rmsse_scale = M.scale_rmsse(summary.diff_sq, summary.length)
     cols = M.columns(cfg.metrics, levels)
-    losses = []
-    for f, r in zip(sub.forecasters, results):
+
+    def score(pair: tuple[int, ForecasterResult]) -> np.ndarray:
+        f, r = pair
         assert r.point is not None
         r.scores = M.score_tasks(cols, actual, r.point, r.lower, r.upper, levels, mase_scale,
                                  rmsse_scale, carry=carry[f])
         loss = M.pointwise_loss(cfg.rank_by, actual, r.point, mase_scale, rmsse_scale)
-        losses.append(np.full(r.point.shape, np.nan) if loss is None else loss)
+        return np.full(r.point.shape, np.nan) if loss is None else loss
+
+    losses = _each(pool, actual.size, score, list(zip(sub.forecasters, results)))
     ref = next((i for i, r in enumerate(results) if r.spec.name == sub.reference), None)
     for r, loss in zip(results, losses):
         r.versus_reference = (np.full(sub.n_tasks, np.nan) if ref is None
