@@ -68,4 +68,8 @@ def test_warm_rerun_imports_no_fitting_test_or_plotting_library(tmp_path: Path) 
     run = "from runner.cli import main; main(['run', 'c.yaml', '--out', 'out', '--quiet'])"
     cold = _loaded(run, folder)
     assert "statsmodels.tsa" in cold and "matplotlib" in cold  # it fitted and drew
+    # A comment changes the config's bytes, not its meaning: the rerun is a full one (an
+    # unchanged config would find its results up to date and run nothing at all).
+    with open(folder / "c.yaml", "a") as fh:
+        fh.write("# rerun\n")
     assert _loaded(run, folder) == []  # everything cached, every plot unchanged
