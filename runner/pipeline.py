@@ -16,6 +16,7 @@ from typing import TYPE_CHECKING, Any
 import pandas as pd
 
 from runner.config import Config
+from runner.output.uptodate import Inputs
 from runner.scoring.evaluate import Evaluation, evaluate
 from runner.scoring.leaderboard import build_leaderboard
 from runner.windows.plan import Plan, build_plan
@@ -92,8 +93,11 @@ def prepare(config: str | Path | Config, config_path: Path | None = None) -> Pla
     from runner.scoring.metrics import DEFAULT_METRICS, check_metrics, unreliable_rank_warning
 
     if isinstance(config, (str, Path)):
+        inputs = Inputs.of_config(config)  # hashed before it is read, as every input below
         config_path = Path(config)
         config = load_config(config_path)
+    else:
+        inputs = Inputs.refusing("the config was given as an object, not read from a file")
     config_path = config_path or Path("config.yaml")
     rank_by, note = check_metrics(
         config.metrics, config.rank_by, bool(config.intervals), str(config_path)
@@ -105,7 +109,9 @@ def prepare(config: str | Path | Config, config_path: Path | None = None) -> Pla
         "metrics": list(DEFAULT_METRICS) if config.metrics is None else config.metrics,
         "rank_by": rank_by,
     })
+    _record_inputs(inputs, config, config_path)
     dropped = validate_forecasters(config, config_path)
+    inputs.confirm_plugins()
     notes.extend(dropped.values())
     specs = [s for s in forecaster_specs(config) if s.name not in dropped]
     # forecasts made elsewhere: read and checked here, before any work, like the datasets
@@ -113,10 +119,37 @@ def prepare(config: str | Path | Config, config_path: Path | None = None) -> Pla
     plan = build_plan(config, specs, config_path, file_origins=recorded.origins)
     recorded.attach(plan)
     plan.notes.extend(notes)
+    plan.inputs = inputs
     warning = unreliable_rank_warning(rank_by)
     if warning is not None:
         plan.warnings.append(warning)
     return plan
+
+
+def _record_inputs(inputs: Inputs, config: Config, config_path: Path) -> None:
+    """Hash every file the run will read (datasets, attribute files, recorded forecasts,
+    plugin modules) into ``inputs`` before it is read: the manifest keeps them, so that a rerun
+    on the same bytes can be found to have nothing to do."""
+    from runner.forecasters.registry import BY_KIND, PANEL_PLUGIN, PLUGIN
+
+    base = config_path.parent
+    for ds in config.datasets:
+        inputs.add_file("dataset", ds.path, base)
+        if ds.attributes and ds.attribute_file is not None:
+            inputs.add_file("attributes", ds.attribute_file, base)
+    for m in config.models:
+        kind = BY_KIND.get(m.kind)
+        if kind is not None and kind.from_file:
+            # a grid may list several files; a missing path is the validation's to report
+            paths = m.grid.get("path") or [m.params.get("path")]
+            for path in paths:
+                inputs.add_file("recorded", path, base)
+        if m.kind in (PLUGIN, PANEL_PLUGIN) and m.entry:
+            inputs.add_plugin(m.entry, base)
+    ex = config.execution
+    if ex.engine == "dask" and ex.address:
+        inputs.refuse(f"tasks ran on the dask cluster at {ex.address}, whose machines castgrid "
+                      "does not check")
 
 
 def _check_paths(plan: Plan, target: Path | None, use_cache: bool) -> None:

@@ -70,4 +70,8 @@ def test_warm_rerun_imports_no_fitting_test_or_plotting_library(tmp_path: Path) 
     # it fitted (and drew: in the painter process where there is one, else here)
     assert "statsmodels.tsa" in cold
     assert len(list((folder / "out" / "plots").glob("*.png"))) >= 4
+    # A comment changes the config's bytes, not its meaning: the rerun is a full one (an
+    # unchanged config would find its results up to date and run nothing at all).
+    with open(folder / "c.yaml", "a") as fh:
+        fh.write("# rerun\n")
     assert _loaded(run, folder) == []  # everything cached, every plot unchanged

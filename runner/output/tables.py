@@ -131,3 +131,12 @@ def to_terminal(board: pd.DataFrame, rank_by: str) -> str:
     flagged = dict.fromkeys(c.partition("_")[0] for c in columns if M.flag_note(c))
     lines.extend(str(M.flag_note(m)) for m in flagged)
     return "\n".join(lines)
+
+
+def terminal_text(board: pd.DataFrame, rank_by: str, selection: pd.DataFrame | None) -> str:
+    """What ``castgrid run`` prints on stdout: :func:`to_terminal`, then a line per selector
+    of the run's selection (:func:`runner.scoring.derived.selection_lines`), each line ended."""
+    from runner.scoring.derived import selection_lines
+
+    return "".join(f"{text}\n" for text in [to_terminal(board, rank_by),
+                                             *selection_lines(selection)])

@@ -30,7 +30,9 @@ from runner.errors import PathError
 from runner.forecasters.recorded import manifest_entries
 from runner.forecasters.registry import identity
 from runner.output.parquet_files import ForecastSink, ParquetFile, text_column, time_column
-from runner.output.tables import to_csv_text, to_markdown
+from runner.output.tables import terminal_text, to_csv_text, to_markdown
+from runner.output.uptodate import RECORD, TERMINAL, Inputs, may_pass, output_digests
+from runner.output.uptodate import cpu_model as _cpu_model
 from runner.scoring import metrics as M
 from runner.scoring.derived import selection_frame
 from runner.scoring.results import Chunk, Evaluation
@@ -60,19 +62,6 @@ def _versions() -> dict[str, str]:
 def _origins_summary(dp: DatasetPlan) -> dict[str, Any]:
     labels = dp.origin_labels()
     return {"count": int(len(labels)), "first": str(labels[0]), "last": str(labels[-1])}
-
-
-def _cpu_model() -> str:
-    """The CPU's model name (Linux /proc/cpuinfo), else what the platform module knows."""
-    try:
-        with open("/proc/cpuinfo", encoding="utf-8", errors="replace") as fh:
-            for line in fh:
-                key, _, value = line.partition(":")
-                if key.strip() in ("model name", "Model", "cpu model"):
-                    return value.strip()
-    except OSError:
-        pass
-    return platform.processor() or "unknown"
 
 
 def platform_info() -> dict[str, Any]:
@@ -295,9 +284,7 @@ class Staging:
         (tmp / "leaderboard.md").write_text(
             to_markdown(board, cfg.rank_by, cfg.metrics), encoding="utf-8"
         )
-        (tmp / "manifest.json").write_text(
-            json.dumps(man, indent=2, sort_keys=True) + "\n", encoding="utf-8"
-        )
+        _write_manifest(tmp, man)
         from runner.output.segments import write_segment_files
 
         write_segment_files(ev, tmp, board)
@@ -310,6 +297,8 @@ class Staging:
         selection = selection_frame(ev)
         if selection is not None:  # only runs with a best_so_far candidate have one
             _csv(selection, tmp / "selection.csv")
+        # what `castgrid run` prints, as bytes: a rerun with nothing to do prints it again
+        (tmp / TERMINAL).write_bytes(terminal_text(board, cfg.rank_by, selection).encode())
         old_history = self.out_dir / "history.jsonl"
         if old_history.exists():
             shutil.copy2(old_history, tmp / "history.jsonl")
@@ -320,8 +309,30 @@ class Staging:
             self.sink.close()
         if finish is not None:
             finish(tmp)
+        _seal(tmp, ev)
         _swap_in(tmp, self.out_dir)
         return man
+
+
+def _write_manifest(folder: Path, man: dict[str, Any]) -> None:
+    (folder / "manifest.json").write_text(
+        json.dumps(man, indent=2, sort_keys=True) + "\n", encoding="utf-8"
+    )
+
+
+def _seal(folder: Path, ev: Evaluation) -> None:
+    """Write :data:`~runner.output.uptodate.RECORD` (what a rerun compares) last of all: the
+    digests of the outputs are taken once every other file, report and history included, is
+    written."""
+    inputs = ev.plan.inputs
+    if inputs is None:  # a plan built without runner.pipeline.prepare
+        inputs = Inputs.refusing("the run's plan was not prepared from a config file")
+    reasons = [(r.reason[t], r.message[t]) for dr in ev.datasets for r in dr.results
+               for t in np.flatnonzero(r.failed)]
+    retry = sum(may_pass(str(reason), str(message)) for reason, message in reasons)
+    record = inputs.record(not ev.stopped, len(reasons), retry, output_digests(folder))
+    (folder / RECORD).write_text(json.dumps(record, indent=2, sort_keys=True) + "\n",
+                                 encoding="utf-8")
 
 
 def write_results(

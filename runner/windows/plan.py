@@ -77,6 +77,9 @@ class Plan:
     notes: list[str] = field(default_factory=list)
     #: choices the config made that may mislead (ranking by a metric flagged as unreliable)
     warnings: list[str] = field(default_factory=list)
+    #: the files the run read, hashed before reading (runner.output.uptodate.Inputs; set by
+    #: runner.pipeline.prepare), for the results folder's rerun.json (runner.output.uptodate)
+    inputs: Any = None
 
     def all_notes(self) -> list[str]:
         """The run's notes, then each dataset's (prefixed with the dataset's name)."""
