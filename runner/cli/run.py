@@ -67,10 +67,11 @@ def main(args: argparse.Namespace) -> int:
             # the exit code of the run that wrote the folder: its failures would recur
             return 3 if verdict.failed else 0
 
+    import runner.pipeline  # noqa: F401  (pandas and numpy, loaded before the fork below)
     from runner.report.painter import start_painter
 
-    # The report's painter starts now, so that it loads matplotlib while this process loads
-    # its own libraries and the data (runner.report.painter).
+    # The report's painter starts now, so that it loads matplotlib while this process reads
+    # and computes (runner.report.painter); it shares the libraries loaded so far.
     with start_painter() as painter:
         return _run(args, t0, painter)
 

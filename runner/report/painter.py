@@ -190,47 +190,85 @@ def _serve(requests: int, answers: int) -> None:
 
 
 def _warm_up() -> None:
-    """Import matplotlib and load its fonts: what the first drawing would otherwise pay."""
+    """Load what the first drawings would otherwise load: matplotlib and the parts of it the
+    report's plots use (dates on an axis, lines, bands, bars, a legend, bold and regular text at
+    the report's sizes, the PNG writer), and pandas, which the sketches of the forecasts plot
+    carry. Drawn with invented values, and thrown away."""
     import io
 
+    import numpy as np
+    import pandas as pd
     from matplotlib import rc_context
     from matplotlib.figure import Figure
 
     from runner.report.style import RC
 
+    when = pd.date_range("2020-01-01", periods=12, freq="MS")
     with rc_context(RC):
-        fig = Figure(figsize=(1, 1), layout="constrained")
-        fig.add_subplot().set_title("0")
-        fig.savefig(io.BytesIO(), format="png", dpi=10)
+        fig = Figure(figsize=(6, 4), layout="constrained")
+        top, bottom = fig.subplots(2, 1)
+        top.plot(when, np.arange(12.0), marker="o", label="a")
+        top.fill_between(when, np.zeros(12), np.ones(12), alpha=0.2)
+        top.set_title("warm-up")
+        top.set_ylabel("value")
+        top.legend(loc="upper left")
+        bottom.barh(["a", "b"], [1.0, -2.0])
+        bottom.axvline(0.0)
+        bottom.set_xlabel("skill (percent)")
+        bottom.text(0.5, 0.5, "1.0%", fontweight="bold")
+        fig.savefig(io.BytesIO(), format="png")
 
 
 def _draw_split(jobs: list[tuple[dict[str, Any], Any, str]]) -> list[Painted]:
-    """Draw ``jobs``; with more than one, the odd ones in a fork of this process, so that two
-    cores draw at once."""
+    """Draw ``jobs`` in this process and, when there is more than one, in a fork of it, so that
+    two cores draw at once. Each process takes the next job from a shared queue (a pipe of job
+    numbers, largest sketch first) when it is done with its last, so neither waits for the
+    other while jobs remain."""
     if len(jobs) < 2:
         return [_draw(*job) for job in jobs]
+    order = sorted(range(len(jobs)), key=lambda i: -len(pickle.dumps(jobs[i][0])))
+    queue_r, queue_w = os.pipe()
+    _send_numbers(queue_w, order)
+    os.close(queue_w)  # an empty queue then reads as the end of the pipe
     theirs_r, theirs_w = os.pipe()
     pid = os.fork()
     if pid == 0:
         code = 0
         try:
             os.close(theirs_r)
-            _send(theirs_w, [_draw(*job) for job in jobs[1::2]])
+            _send(theirs_w, _take_and_draw(queue_r, jobs))
         except BaseException:
             code = 1
         finally:
             os._exit(code)
     os.close(theirs_w)
     try:
-        mine = [_draw(*job) for job in jobs[0::2]]
+        mine = _take_and_draw(queue_r, jobs)
         theirs = _receive(theirs_r)
     finally:
         os.close(theirs_r)
+        os.close(queue_r)
         os.waitpid(pid, 0)
-    out: list[Painted] = []
-    for i in range(len(jobs)):
-        out.append(mine[i // 2] if i % 2 == 0 else theirs[i // 2])
-    return out
+    drawn = {**mine, **theirs}
+    return [drawn[i] for i in range(len(jobs))]
+
+
+def _send_numbers(fd: int, numbers: list[int]) -> None:
+    """Job numbers as two bytes each: a pipe read of two bytes is never split between two
+    readers (anything up to PIPE_BUF bytes is read and written whole)."""
+    data = b"".join(struct.pack("<H", n) for n in numbers)
+    view = memoryview(data)
+    while view:
+        view = view[os.write(fd, view):]
+
+
+def _take_and_draw(queue: int, jobs: list[tuple[dict[str, Any], Any, str]]
+                   ) -> dict[int, Painted]:
+    done: dict[int, Painted] = {}
+    while len(taken := os.read(queue, 2)) == 2:
+        i = struct.unpack("<H", taken)[0]
+        done[i] = _draw(*jobs[i])
+    return done
 
 
 def _draw(data: dict[str, Any], paint: Any, key: str) -> Painted:
