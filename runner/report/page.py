@@ -70,43 +70,58 @@ class Plot:
     missing: str = ""
     notes: list[str] = field(default_factory=list)
 
-    def take(self, sketch: Sketch | None) -> None:
-        """Keep what the plot will draw (nothing when there is nothing to draw)."""
+    def take(self, sketch: Sketch | None, drawing: Drawing | None = None) -> None:
+        """Keep what the plot will draw (nothing when there is nothing to draw); ``drawing``
+        gets it at once (reused, or handed to the painter while the next plot is sketched)."""
         self.sketch = sketch
+        if drawing is not None and sketch is not None:
+            drawing.add(self)
 
 
-def render(plots: list[Plot], places: list[Path], painter: Painter | None = None) -> int:
-    """Give every plot with a sketch its PNG and notes: the PNG of the same name and key from
-    the first of ``places`` (plot folders) that has one, else a new drawing (by ``painter``
-    when given and able, else here). Returns how many plots were drawn."""
-    from runner.report.reuse import plot_key, reusable, stamp
+class Drawing:
+    """The PNGs of a report's plots, as the plots are sketched: each one the PNG of the same
+    name and key from the first of ``places`` (plot folders) that has one, else drawn by
+    ``painter`` (handed over at once, so it draws while the report sketches the next plot) or,
+    without one or when it fails, here in :meth:`finish`."""
 
-    todo = []
-    for p in plots:
-        if p.sketch is None:
-            continue
-        key = plot_key(p.file, p.sketch.data)
-        found = reusable(places, p.file, key)
+    def __init__(self, places: list[Path], painter: Painter | None = None) -> None:
+        self.places = places
+        self.painter = painter
+        self.todo: list[tuple[Plot, str]] = []
+
+    def add(self, plot: Plot) -> None:
+        """Reuse or start drawing ``plot`` (which has a sketch)."""
+        from runner.report.reuse import plot_key, reusable
+
+        assert plot.sketch is not None
+        key = plot_key(plot.file, plot.sketch.data)
+        found = reusable(self.places, plot.file, key)
         if found is not None:
-            p.png, p.notes = found
-        else:
-            todo.append((p, key))
-    painted = None
-    if todo and painter is not None:
-        painted = painter.paint([(p.sketch, key) for p, key in todo])  # type: ignore[misc]
-    if painted is not None:
-        for (p, _), (png, notes) in zip(todo, painted):
-            p.png, p.notes = png, notes
-    elif todo:
-        from matplotlib import rc_context
+            plot.png, plot.notes = found
+            return
+        self.todo.append((plot, key))
+        if self.painter is not None:
+            self.painter.submit(plot.sketch, key)
 
-        with rc_context(RC):
-            for p, key in todo:
-                assert p.sketch is not None
-                drawn = p.sketch.draw()
-                p.notes = drawn.notes
-                p.png = drawn.png(stamp(key, drawn.notes))
-    return len(todo)
+    def finish(self) -> int:
+        """Give every plot added its PNG and notes; returns how many were drawn."""
+        from runner.report.reuse import stamp
+
+        todo, self.todo = self.todo, []
+        painted = self.painter.collect() if todo and self.painter is not None else None
+        if painted is not None:
+            for (p, _), (png, notes) in zip(todo, painted):
+                p.png, p.notes = png, notes
+        elif todo:
+            from matplotlib import rc_context
+
+            with rc_context(RC):
+                for p, key in todo:
+                    assert p.sketch is not None
+                    drawn = p.sketch.draw()
+                    p.notes = drawn.notes
+                    p.png = drawn.png(stamp(key, drawn.notes))
+        return len(todo)
 
 
 def _plot_html(plot: Plot) -> str:
@@ -193,7 +208,8 @@ def _page(manifest: dict[str, Any], sections: list[str], failures: str) -> str:
     )
 
 
-def _dataset_plots(view: DatasetView, results: Results) -> list[Plot]:
+def _dataset_plots(view: DatasetView, results: Results, drawing: Drawing | None = None
+                   ) -> list[Plot]:
     d, m = view.dataset, view.rank_by
     shown = (f"The reference and the {MAX_LINES} best others are shown."
              if len(view.board) > MAX_LINES + 1 else "")
@@ -203,7 +219,7 @@ def _dataset_plots(view: DatasetView, results: Results) -> list[Plot]:
     if results.horizon is None:
         p.missing = f"{HORIZON} is not in the results folder"
     else:
-        p.take(sketch_horizon(view, results.horizon))
+        p.take(sketch_horizon(view, results.horizon), drawing)
         p.missing = f"no {m} column for this dataset in {HORIZON}"
     out.append(p)
 
@@ -213,7 +229,7 @@ def _dataset_plots(view: DatasetView, results: Results) -> list[Plot]:
     if not results.has_scores:
         p.missing = f"{SCORES} is not in the results folder"
     else:
-        p.take(sketch_folds(view, results.fold_scores(d, m)))
+        p.take(sketch_folds(view, results.fold_scores(d, m)), drawing)
         p.missing = f"no {m} scores for this dataset in {SCORES}"
     out.append(p)
 
@@ -231,7 +247,7 @@ def _dataset_plots(view: DatasetView, results: Results) -> list[Plot]:
         picks = series_extremes(view, scores, best) if scores is not None else None
         rows = results.forecast_rows(d, picks, drawn)
         sketch, note = sketch_forecasts(view, rows, scores)
-        p.take(sketch)
+        p.take(sketch, drawing)
         p.caption = (f"Best and worst series (by mean {m}) of the best candidate: {note}. "
                      "The dashed black line is the reference's forecast.")
         p.missing = note
@@ -239,7 +255,7 @@ def _dataset_plots(view: DatasetView, results: Results) -> list[Plot]:
 
     p = Plot(f"{d}-skill.png", "skill against the reference",
              f"1 - {m} / {m} of the reference; bold labels mark significant wins.")
-    p.take(sketch_skill(view))
+    p.take(sketch_skill(view), drawing)
     p.missing = f"no {m}_rel column or no forecaster other than the reference"
     out.append(p)
 
@@ -247,7 +263,7 @@ def _dataset_plots(view: DatasetView, results: Results) -> list[Plot]:
     if results.history is None:
         p.missing = f"{HISTORY} is not in the results folder"
     else:
-        p.take(sketch_history(view, results.history))
+        p.take(sketch_history(view, results.history), drawing)
         runs = len(history_runs(view, results.history))
         every = sum(1 for e in results.history
                     if view.dataset in e["scores"] and e["rank_by"] == m)
@@ -269,7 +285,8 @@ def _best_scores(view: DatasetView, results: Results) -> pd.DataFrame | None:
     return results.series_scores(view.dataset, best, view.rank_by)
 
 
-def _segment_sections(view: DatasetView, results: Results) -> tuple[str, list[Plot]]:
+def _segment_sections(view: DatasetView, results: Results, drawing: Drawing | None = None
+                      ) -> tuple[str, list[Plot]]:
     """Per segment attribute: the skill of every forecaster per segment as one shaded table,
     and the forecasts of the best and worst series of each segment (empty without segments)."""
     from runner.scoring.segments import segment_skill
@@ -304,7 +321,7 @@ def _segment_sections(view: DatasetView, results: Results) -> tuple[str, list[Pl
             part = results.forecast_rows(view.dataset, picks, drawn_names)
             sketch, note = sketch_forecasts(view, part, scores, series=series,
                                             title=f"{attribute} {value}")
-            p.take(sketch)
+            p.take(sketch, drawing)
             p.caption = f"Best and worst series of this segment (by mean {view.rank_by}): {note}."
             p.missing = note
             plots.append(p)
@@ -335,13 +352,15 @@ def build_report(out_dir: Path, previous: Path | None = None,
     """
     out_dir = Path(out_dir)
     results = read_results(out_dir, forecasts=False, scores=False)
+    places = [out_dir / PLOTS] + ([Path(previous) / PLOTS] if previous is not None else [])
+    drawing = Drawing(places, painter)  # each plot is drawn as soon as it is sketched
     per_view = []
     for view in dataset_views(results):
-        segment_html, segment_plots = _segment_sections(view, results)
-        per_view.append((view, _dataset_plots(view, results) + segment_plots, segment_html))
+        segment_html, segment_plots = _segment_sections(view, results, drawing)
+        per_view.append((view, _dataset_plots(view, results, drawing) + segment_plots,
+                         segment_html))
     plots = [p for _, mine, _ in per_view for p in mine]
-    places = [out_dir / PLOTS] + ([Path(previous) / PLOTS] if previous is not None else [])
-    render(plots, places, painter)
+    drawing.finish()
     sections = [
         f"<h2>dataset {html.escape(view.dataset)}</h2>"
         f'<div class="card">{_summary_html(view)}{leaderboard_html(view)}'

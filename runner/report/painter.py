@@ -1,16 +1,17 @@
-"""Drawing the report's plots in a process of their own, started when a run starts.
+"""Drawing the report's plots in processes of their own, started when a run starts.
 
 A run's report is its last step, and drawing is most of it: importing matplotlib (about half a
 second) and rendering each PNG. On a machine with two or more cores, :func:`start_painter`
-forks the run's process as soon as the run begins; the fork imports matplotlib and sets up its
-fonts while the run loads, forecasts and scores, then waits. When the report has plots to draw,
-:meth:`Painter.paint` hands it their sketches (plain data and a module-level drawing function,
-so they pickle); it draws them, half in a fork of its own when there is more than one, and
-sends back the PNG bytes and notes. The plots are the same bytes as plots drawn in the run's
-own process: the same code, library, fonts and settings draw them.
+forks the run's process once its libraries are loaded; the fork imports matplotlib and warms
+it up on a drawing like the report's while the run reads, forecasts and scores, then forks a
+second drawer of its own. The report hands each plot's sketch (plain data and a module-level
+drawing function, so it pickles) to the less busy drawer as soon as it is made
+(:meth:`Painter.submit`), so the drawers draw while the report makes the next sketches, and
+:meth:`Painter.collect` gathers the PNG bytes and notes. The plots are the same bytes as plots
+drawn in the run's own process: the same code, library, fonts and settings draw them.
 
-Anything wrong with the painter (it died, a pipe broke, a drawing raised) makes
-:meth:`Painter.paint` return None, and the report draws in its own process instead, where an
+Anything wrong with a drawer (it died, a pipe broke, a drawing raised) makes
+:meth:`Painter.collect` return None, and the report draws in its own process instead, where an
 error in a drawing surfaces with its own traceback. On platforms without ``fork`` (or with one
 core) there is no painter and the report draws as before.
 """
@@ -38,7 +39,10 @@ _LENGTH = struct.Struct("<Q")
 
 
 def _send(fd: int, obj: object) -> None:
-    data = pickle.dumps(obj, protocol=pickle.HIGHEST_PROTOCOL)
+    _write_message(fd, pickle.dumps(obj, protocol=pickle.HIGHEST_PROTOCOL))
+
+
+def _write_message(fd: int, data: bytes) -> None:
     view = memoryview(_LENGTH.pack(len(data)) + data)
     while view:
         view = view[os.write(fd, view):]
@@ -76,42 +80,82 @@ def can_paint_aside() -> bool:
             and _usable_cores() >= 2)
 
 
-class Painter:
-    """The run's end of a painter process (see the module doc). Use :func:`start_painter`."""
+class _Drawer:
+    """The run's ends of the pipes to one drawer process."""
 
-    def __init__(self, pid: int, to_child: int, from_child: int) -> None:
+    def __init__(self, requests: int, answers: int) -> None:
+        self.requests = requests
+        self.answers = answers
+        self.jobs: list[int] = []  # what was sent to it, in order
+        self.load = 0  # the pickled size of what was sent: a measure of the drawing to do
+
+
+class Painter:
+    """The run's end of the painter processes (see the module doc). Use :func:`start_painter`."""
+
+    def __init__(self, pid: int, drawers: list[_Drawer]) -> None:
         self.pid = pid
-        self.to_child = to_child
-        self.from_child = from_child
+        self.drawers = drawers
+        self.submitted = 0
         self.closed = False
 
-    def paint(self, jobs: list[tuple[Sketch, str]]) -> list[Painted] | None:
-        """The PNG bytes and notes of each ``(sketch, key)`` (the key is stored in the PNG, as
-        :func:`runner.report.reuse.stamp` says), in order; None when the painter could not
-        draw them (the caller then draws them itself)."""
+    def submit(self, sketch: Sketch, key: str) -> None:
+        """Hand a plot's sketch to the less busy drawer (``key`` is stored in the PNG, as
+        :func:`runner.report.reuse.stamp` says); a failure shows in :meth:`collect`."""
+        index, self.submitted = self.submitted, self.submitted + 1
+        if self.closed:
+            return
+        try:
+            data = pickle.dumps(("draw", index, sketch.data, sketch.paint, key),
+                                protocol=pickle.HIGHEST_PROTOCOL)
+            drawer = min(self.drawers, key=lambda d: d.load)
+            _write_message(drawer.requests, data)
+        except (OSError, pickle.PickleError, AttributeError, TypeError):
+            self.close()
+            return
+        drawer.jobs.append(index)
+        drawer.load += len(data)
+
+    def collect(self) -> list[Painted] | None:
+        """The PNG bytes and notes of every sketch submitted since the last collect, in the
+        order submitted; None when the drawers could not draw them all (the caller then draws
+        them itself)."""
+        count, self.submitted = self.submitted, 0
         if self.closed:
             return None
+        drawn: dict[int, Painted] = {}
         try:
-            _send(self.to_child, [(s.data, s.paint, key) for s, key in jobs])
-            answer = _receive(self.from_child)
-        except (OSError, EOFError, pickle.PickleError, AttributeError, TypeError):
+            for d in self.drawers:
+                _send(d.requests, ("collect",))
+            for d in self.drawers:
+                answer = _receive(d.answers)
+                if not isinstance(answer, dict) or sorted(answer) != sorted(d.jobs):
+                    raise ValueError("a drawer failed")  # draw here, where the error shows
+                drawn.update(answer)
+                d.jobs, d.load = [], 0
+        except (OSError, EOFError, ValueError, pickle.PickleError, AttributeError, TypeError):
             self.close()
             return None
-        if not isinstance(answer, list) or len(answer) != len(jobs):
-            self.close()  # the painter reported a failure: draw here, where it shows
-            return None
-        return answer
+        return [drawn[i] for i in range(count)]
+
+    def paint(self, jobs: list[tuple[Sketch, str]]) -> list[Painted] | None:
+        """:meth:`submit` each ``(sketch, key)``, then :meth:`collect`."""
+        for sketch, key in jobs:
+            self.submit(sketch, key)
+        return self.collect()
 
     def close(self) -> None:
-        """End the painter process and reap it (idempotent)."""
+        """End the painter processes and reap the first (idempotent); the second drawer ends
+        when its pipe closes."""
         if self.closed:
             return
         self.closed = True
-        for fd in (self.to_child, self.from_child):
-            try:
-                os.close(fd)
-            except OSError:
-                pass
+        for d in self.drawers:
+            for fd in (d.requests, d.answers):
+                try:
+                    os.close(fd)
+                except OSError:
+                    pass
         try:  # it exits when its pipe closes; kill it if it is stuck in a drawing
             os.kill(self.pid, signal.SIGKILL)
         except ProcessLookupError:
@@ -141,32 +185,38 @@ def _fork_painter() -> Painter | None:
             stream.flush()
         except (OSError, ValueError, AttributeError):
             pass
-    down_r, down_w = os.pipe()
-    up_r, up_w = os.pipe()
+    # per drawer: requests (run -> drawer) and answers (drawer -> run)
+    pipes = [(os.pipe(), os.pipe()) for _ in range(2)]
     try:
         pid = os.fork()
     except OSError:
-        for fd in (down_r, down_w, up_r, up_w):
-            os.close(fd)
+        for (a, b), (c, e) in pipes:
+            for fd in (a, b, c, e):
+                os.close(fd)
         return None
     if pid:
-        os.close(down_r)
-        os.close(up_w)
-        return Painter(pid, down_w, up_r)
+        drawers = []
+        for (req_r, req_w), (ans_r, ans_w) in pipes:
+            os.close(req_r)
+            os.close(ans_w)
+            drawers.append(_Drawer(req_w, ans_r))
+        return Painter(pid, drawers)
     code = 0
     try:  # the child: never returns into the caller's code
-        os.close(down_w)
-        os.close(up_r)
-        _serve(down_r, up_w)
+        for (_, req_w), (ans_r, _) in pipes:
+            os.close(req_w)
+            os.close(ans_r)
+        _serve([(req_r, ans_w) for (req_r, _), (_, ans_w) in pipes])
     except BaseException:
         code = 1
     finally:
         os._exit(code)
 
 
-def _serve(requests: int, answers: int) -> None:
-    """The painter's loop: load matplotlib, then draw each request until the pipe closes."""
-    # Ctrl-C is the run's to handle: it ends this process by closing the pipe (or killing it).
+def _serve(ends: list[tuple[int, int]]) -> None:
+    """The painter: load and warm up matplotlib, fork the second drawer, then each draws what
+    its pipe brings until the pipe closes."""
+    # Ctrl-C is the run's to handle: it ends these processes by closing the pipes.
     signal.signal(signal.SIGINT, signal.SIG_IGN)
     signal.signal(signal.SIGTERM, signal.SIG_DFL)
     # The run's objects are shared with this fork until written; a collection pass would
@@ -177,16 +227,49 @@ def _serve(requests: int, answers: int) -> None:
         os.dup2(devnull, fd)
     os.close(devnull)
     _warm_up()
+    (mine_r, mine_w), (theirs_r, theirs_w) = ends
+    try:
+        second = os.fork()
+    except OSError:  # its pipe closes with this process's end: the run then draws itself
+        second = -1
+    if second == 0:
+        os.close(mine_r)
+        os.close(mine_w)
+        _draw_requests(theirs_r, theirs_w)
+        return
+    os.close(theirs_r)
+    os.close(theirs_w)
+    try:
+        _draw_requests(mine_r, mine_w)
+    finally:
+        if second > 0:
+            try:
+                os.waitpid(second, 0)
+            except ChildProcessError:
+                pass
+
+
+def _draw_requests(requests: int, answers: int) -> None:
+    """Draw each sketch as it comes; send what was drawn when the run asks to collect (not
+    before: the run reads only then, and a full pipe would stop the drawing)."""
+    drawn: dict[int, Painted] = {}
+    failed = ""
     while True:
         try:
-            jobs = _receive(requests)
+            message = _receive(requests)
         except EOFError:
             return
+        if message[0] == "collect":
+            _send(answers, failed or drawn)
+            drawn, failed = {}, ""
+            continue
+        _, index, data, paint, key = message
+        if failed:
+            continue
         try:
-            answer: Any = _draw_split(jobs)
+            drawn[index] = _draw(data, paint, key)
         except Exception as exc:  # the run draws again itself, where the error shows
-            answer = f"{type(exc).__name__}: {exc}"
-        _send(answers, answer)
+            failed = f"{type(exc).__name__}: {exc}"
 
 
 def _warm_up() -> None:
@@ -217,58 +300,6 @@ def _warm_up() -> None:
         bottom.set_xlabel("skill (percent)")
         bottom.text(0.5, 0.5, "1.0%", fontweight="bold")
         fig.savefig(io.BytesIO(), format="png")
-
-
-def _draw_split(jobs: list[tuple[dict[str, Any], Any, str]]) -> list[Painted]:
-    """Draw ``jobs`` in this process and, when there is more than one, in a fork of it, so that
-    two cores draw at once. Each process takes the next job from a shared queue (a pipe of job
-    numbers, largest sketch first) when it is done with its last, so neither waits for the
-    other while jobs remain."""
-    if len(jobs) < 2:
-        return [_draw(*job) for job in jobs]
-    order = sorted(range(len(jobs)), key=lambda i: -len(pickle.dumps(jobs[i][0])))
-    queue_r, queue_w = os.pipe()
-    _send_numbers(queue_w, order)
-    os.close(queue_w)  # an empty queue then reads as the end of the pipe
-    theirs_r, theirs_w = os.pipe()
-    pid = os.fork()
-    if pid == 0:
-        code = 0
-        try:
-            os.close(theirs_r)
-            _send(theirs_w, _take_and_draw(queue_r, jobs))
-        except BaseException:
-            code = 1
-        finally:
-            os._exit(code)
-    os.close(theirs_w)
-    try:
-        mine = _take_and_draw(queue_r, jobs)
-        theirs = _receive(theirs_r)
-    finally:
-        os.close(theirs_r)
-        os.close(queue_r)
-        os.waitpid(pid, 0)
-    drawn = {**mine, **theirs}
-    return [drawn[i] for i in range(len(jobs))]
-
-
-def _send_numbers(fd: int, numbers: list[int]) -> None:
-    """Job numbers as two bytes each: a pipe read of two bytes is never split between two
-    readers (anything up to PIPE_BUF bytes is read and written whole)."""
-    data = b"".join(struct.pack("<H", n) for n in numbers)
-    view = memoryview(data)
-    while view:
-        view = view[os.write(fd, view):]
-
-
-def _take_and_draw(queue: int, jobs: list[tuple[dict[str, Any], Any, str]]
-                   ) -> dict[int, Painted]:
-    done: dict[int, Painted] = {}
-    while len(taken := os.read(queue, 2)) == 2:
-        i = struct.unpack("<H", taken)[0]
-        done[i] = _draw(*jobs[i])
-    return done
 
 
 def _draw(data: dict[str, Any], paint: Any, key: str) -> Painted:
