@@ -25,6 +25,7 @@ import signal
 import struct
 import sys
 import threading
+import time
 from collections.abc import Iterator
 from contextlib import contextmanager
 from typing import TYPE_CHECKING, Any
@@ -36,6 +37,8 @@ if TYPE_CHECKING:
 Painted = tuple[bytes, list[str]]
 
 _LENGTH = struct.Struct("<Q")
+#: Seconds :meth:`Painter.close` lets the painter finish a drawing before it kills it.
+CLOSE_WAIT = 2.0
 
 
 def _send(fd: int, obj: object) -> None:
@@ -145,8 +148,11 @@ class Painter:
         return self.collect()
 
     def close(self) -> None:
-        """End the painter processes and reap the first (idempotent); the second drawer ends
-        when its pipe closes."""
+        """End the painter processes and reap them (idempotent).
+
+        Closing the pipes ends both drawers once they finish the drawing at hand (the first
+        waits for the second, its own child, so that nothing is left unreaped); a painter
+        still there after :data:`CLOSE_WAIT` seconds is killed."""
         if self.closed:
             return
         self.closed = True
@@ -156,13 +162,15 @@ class Painter:
                     os.close(fd)
                 except OSError:
                     pass
-        try:  # it exits when its pipe closes; kill it if it is stuck in a drawing
-            os.kill(self.pid, signal.SIGKILL)
-        except ProcessLookupError:
-            pass
+        deadline = time.monotonic() + CLOSE_WAIT
         try:
-            os.waitpid(self.pid, 0)
-        except ChildProcessError:
+            while os.waitpid(self.pid, os.WNOHANG) == (0, 0):
+                if time.monotonic() > deadline:
+                    os.kill(self.pid, signal.SIGKILL)
+                    os.waitpid(self.pid, 0)
+                    break
+                time.sleep(0.005)
+        except (ChildProcessError, ProcessLookupError):
             pass
 
 
