@@ -54,6 +54,13 @@ class RunResult:
         return build_segment_leaderboard(self.evaluation)
 
 
+#: Tasks from which a run draws its report's plots in a painter process started with the run
+#: (:mod:`runner.report.painter`). Drawing costs about a second of one core wherever it is
+#: done; beside a run of this size or more it is mostly hidden, while a small run (a test, the
+#: demo's warm rerun) is quicker drawing them itself than starting and warming a process.
+PAINT_ASIDE_TASKS = 20_000
+
+
 def output_dir(cfg: Config, override: str | Path | None = None) -> Path:
     """results/<experiment>, or output.dir, or the ``--out`` override."""
     if override is not None:
@@ -185,7 +192,8 @@ def run(
     cannot be written raises :class:`runner.PathError` before anything is computed.
 
     ``painter`` draws the report's plots in a process of its own
-    (:mod:`runner.report.painter`); without one, the run starts its own where it can.
+    (:mod:`runner.report.painter`); without one, a run of :data:`PAINT_ASIDE_TASKS` tasks or
+    more starts its own where it can.
     """
     from runner.output.writer import Staging
     from runner.output.writer import manifest as build_manifest
@@ -205,8 +213,10 @@ def run(
     from runner.report.painter import start_painter
 
     # forecasts.parquet is written chunk by chunk while the run computes; the rest after.
-    # The report's plots are drawn by a process started now, which loads matplotlib meanwhile.
-    aside = start_painter() if report and painter is None else nullcontext(painter)
+    # The report's plots are drawn by a process started now, which loads matplotlib meanwhile
+    # (it shares the libraries and data loaded so far).
+    aside = (start_painter() if report and painter is None
+             and plan.n_tasks >= PAINT_ASIDE_TASKS else nullcontext(painter))
     with aside as painter, Staging(target) as stage:
         ev = evaluate(plan, use_cache=use_cache, jobs=jobs, quiet=quiet,
                       sink=stage.forecast_sink(plan))

@@ -101,3 +101,38 @@ def test_no_painter_on_one_core(monkeypatch: pytest.MonkeyPatch) -> None:
     assert not painter_module.can_paint_aside()
     with painter_module.start_painter() as painter:
         assert painter is None
+
+
+def test_a_run_drawn_aside_writes_the_same_files(tmp_path: Path,
+                                                 monkeypatch: pytest.MonkeyPatch) -> None:
+    # the synthetic data of tests/test_chunks.py (invented, seeded): every file but those with
+    # the run's time (history.jsonl, and rerun.json, which hashes it) is the same whether a
+    # painter drew the plots or the run itself
+    from test_chunks import _write
+
+    import runner
+    from runner import pipeline
+
+    cfg = _write(tmp_path, 10_000)
+    collected: list[bool] = []
+    collect = painter_module.Painter.collect
+
+    def spy(self):
+        got = collect(self)
+        collected.append(got is not None)
+        return got
+
+    monkeypatch.setattr(painter_module.Painter, "collect", spy)
+    monkeypatch.setattr(painter_module, "can_paint_aside", lambda: True)
+    files = []
+    for threshold in (0, 10**12):  # every run paints aside; none does
+        monkeypatch.setattr(pipeline, "PAINT_ASIDE_TASKS", threshold)
+        out = tmp_path / f"out{threshold}"
+        runner.run(cfg, out_dir=out)
+        files.append({str(p.relative_to(out)): p.read_bytes() for p in sorted(out.rglob("*"))
+                      if p.is_file() and p.name not in ("history.jsonl", "rerun.json")})
+    assert collected == [True]  # one painter, used, and only in the first run
+    assert sorted(files[0]) == sorted(files[1])
+    assert any(name.startswith("plots/") for name in files[0])
+    for name, data in files[0].items():
+        assert files[1][name] == data, name

@@ -5,10 +5,6 @@ from __future__ import annotations
 import argparse
 import sys
 import time
-from typing import TYPE_CHECKING
-
-if TYPE_CHECKING:
-    from runner.report.painter import Painter
 
 #: ``castgrid run --help``: when a run has nothing to do.
 EPILOG = """\
@@ -67,16 +63,6 @@ def main(args: argparse.Namespace) -> int:
             # the exit code of the run that wrote the folder: its failures would recur
             return 3 if verdict.failed else 0
 
-    import runner.pipeline  # noqa: F401  (pandas and numpy, loaded before the fork below)
-    from runner.report.painter import start_painter
-
-    # The report's painter starts now, so that it loads matplotlib while this process reads
-    # and computes (runner.report.painter); it shares the libraries loaded so far.
-    with start_painter() as painter:
-        return _run(args, t0, painter)
-
-
-def _run(args: argparse.Namespace, t0: float, painter: Painter | None) -> int:
     from runner.cli._summary import summarise
     from runner.output.tables import terminal_text
     from runner.pipeline import prepare, run
@@ -95,7 +81,6 @@ def _run(args: argparse.Namespace, t0: float, painter: Painter | None) -> int:
                 print(f"castgrid: warning: {dp.panel.name}: skipped {s}", file=sys.stderr)
     result = run(
         plan, out_dir=args.out, use_cache=not args.no_cache, jobs=args.jobs, quiet=args.quiet,
-        painter=painter,
     )
     cfg = plan.config
     # the same text the results folder keeps (runner.output.uptodate.TERMINAL)
