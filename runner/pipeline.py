@@ -55,10 +55,11 @@ class RunResult:
 
 
 #: Tasks from which a run draws its report's plots in a painter process started with the run
-#: (:mod:`runner.report.painter`). Drawing costs about a second of one core wherever it is
-#: done; beside a run of this size or more it is mostly hidden, while a small run (a test, the
-#: demo's warm rerun) is quicker drawing them itself than starting and warming a process.
-PAINT_ASIDE_TASKS = 20_000
+#: (:mod:`runner.report.painter`). The painter costs about half a second of a second core to
+#: load and warm up matplotlib, drawn or not; it saves wall time when that core is idle and the
+#: run is long enough to hide the loading. A small run (a test, the demo) draws its few plots
+#: itself and leaves the other core to whatever else runs (a test suite's other worker).
+PAINT_ASIDE_TASKS = 5_000
 
 
 def output_dir(cfg: Config, override: str | Path | None = None) -> Path:
