@@ -1,10 +1,11 @@
-"""Drawing the report's plots in processes of their own, started when a run starts.
+"""Drawing the report's plots in processes of their own, started when a run starts computing.
 
 A run's report is its last step, and drawing is most of it: importing matplotlib (about half a
 second) and rendering each PNG. On a machine with two or more cores, :func:`start_painter`
-forks the run's process once its libraries are loaded; the fork imports matplotlib and warms
-it up on a drawing like the report's while the run reads, forecasts and scores, then forks a
-second drawer of its own. The report hands each plot's sketch (plain data and a module-level
+forks the run's process once its data are read (a large run: see
+:data:`runner.pipeline.PAINT_ASIDE_TASKS`); the fork imports matplotlib and warms it up on a
+drawing like the report's while the run forecasts and scores, then forks a second drawer of
+its own. The report hands each plot's sketch (plain data and a module-level
 drawing function, so it pickles) to the less busy drawer as soon as it is made
 (:meth:`Painter.submit`), so the drawers draw while the report makes the next sketches, and
 :meth:`Painter.collect` gathers the PNG bytes and notes. The plots are the same bytes as plots
