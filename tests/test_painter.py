@@ -96,6 +96,18 @@ def test_the_painter_is_reaped_however_the_block_ends(monkeypatch: pytest.Monkey
         os.waitpid(pid, os.WNOHANG)
 
 
+def test_the_painter_yields_the_cores_to_the_run() -> None:
+    painter = painter_module._fork_painter()
+    assert painter is not None
+    try:
+        painter.paint([])  # an answer: it is past its set-up
+        mine = os.getpriority(os.PRIO_PROCESS, 0)
+        assert os.getpriority(os.PRIO_PROCESS, painter.pid) == min(19, mine
+                                                                  + painter_module.NICENESS)
+    finally:
+        painter.close()
+
+
 def test_no_painter_on_one_core(monkeypatch: pytest.MonkeyPatch) -> None:
     monkeypatch.setattr(painter_module, "_usable_cores", lambda: 1)
     assert not painter_module.can_paint_aside()

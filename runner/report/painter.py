@@ -40,6 +40,8 @@ Painted = tuple[bytes, list[str]]
 _LENGTH = struct.Struct("<Q")
 #: Seconds :meth:`Painter.close` lets the painter finish a drawing before it kills it.
 CLOSE_WAIT = 2.0
+#: How much nicer than the run the painter processes are (``os.nice``).
+NICENESS = 10
 
 
 def _send(fd: int, obj: object) -> None:
@@ -231,6 +233,13 @@ def _serve(ends: list[tuple[int, int]]) -> None:
     # The run's objects are shared with this fork until written; a collection pass would
     # write to every one of them (and so copy the run's memory). Leave them out of it.
     gc.freeze()
+    # Below the run in the scheduler's eyes: while the run computes (on every core it can), the
+    # loading and warming up take what it leaves; when the run waits for the plots, the
+    # drawers have the cores to themselves.
+    try:
+        os.nice(NICENESS)
+    except OSError:  # not allowed here: draw at the run's priority
+        pass
     devnull = os.open(os.devnull, os.O_RDWR)
     for fd in (0, 1):  # nothing drawn here may reach the run's stdout
         os.dup2(devnull, fd)
