@@ -109,7 +109,7 @@ def test_the_painter_yields_the_cores_to_the_run() -> None:
 
 
 def test_no_painter_on_one_core(monkeypatch: pytest.MonkeyPatch) -> None:
-    monkeypatch.setattr(painter_module, "_usable_cores", lambda: 1)
+    monkeypatch.setattr(painter_module, "usable_cores", lambda: 1)
     assert not painter_module.can_paint_aside()
     with painter_module.start_painter() as painter:
         assert painter is None

@@ -46,13 +46,18 @@ from runner.forecasters.registry import PANEL_PLUGIN, PLUGIN
 OnDone = Callable[[TaskOutcome], None]
 
 
+def usable_cores() -> int:
+    """The cores this process may use (its CPU affinity where the system has one)."""
+    try:
+        return max(1, len(os.sched_getaffinity(0)))
+    except AttributeError:  # not on Linux
+        return max(1, os.cpu_count() or 1)
+
+
 def resolve_jobs(jobs: int) -> int:
     """Worker count for ``jobs`` (``-1`` = every core this process may use)."""
     if jobs == -1:
-        try:
-            return max(1, len(os.sched_getaffinity(0)))
-        except AttributeError:  # not on Linux
-            return max(1, os.cpu_count() or 1)
+        return usable_cores()
     return check_jobs(jobs)
 
 

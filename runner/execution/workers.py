@@ -78,6 +78,16 @@ def can_fork() -> bool:
     return sys.platform.startswith("linux") and threading.active_count() == 1
 
 
+def flush_before_fork() -> None:
+    """Flush stdout and stderr: what is buffered in this process must not be written twice,
+    once by it and once by the fork about to be made."""
+    for stream in (sys.stdout, sys.stderr):
+        try:
+            stream.flush()
+        except (OSError, ValueError, AttributeError):
+            pass
+
+
 class _Forked:
     """A forked worker process, with the part of ``subprocess.Popen``'s interface used here."""
 
@@ -115,11 +125,7 @@ class _Forked:
 
 def _fork(shared: SharedData, to_child_r: int, from_child_w: int, drop: list[int]) -> _Forked:
     """Fork a worker that serves tasks on the two pipe ends; ``drop`` are this process's ends."""
-    for stream in (sys.stdout, sys.stderr):  # nothing buffered here may be written twice
-        try:
-            stream.flush()
-        except (OSError, ValueError, AttributeError):
-            pass
+    flush_before_fork()
     pid = os.fork()
     if pid:
         return _Forked(pid)

@@ -23,13 +23,14 @@ import gc
 import os
 import pickle
 import signal
-import struct
-import sys
-import threading
 import time
 from collections.abc import Iterator
 from contextlib import contextmanager
+from multiprocessing.connection import Connection
 from typing import TYPE_CHECKING, Any
+
+from runner.execution.engines import usable_cores
+from runner.execution.workers import can_fork, flush_before_fork
 
 if TYPE_CHECKING:
     from runner.report.plots import Sketch
@@ -37,59 +38,23 @@ if TYPE_CHECKING:
 #: A drawn plot as the painter sends it back: PNG bytes and the notes shown under it.
 Painted = tuple[bytes, list[str]]
 
-_LENGTH = struct.Struct("<Q")
 #: Seconds :meth:`Painter.close` lets the painter finish a drawing before it kills it.
 CLOSE_WAIT = 2.0
 #: How much nicer than the run the painter processes are (``os.nice``).
 NICENESS = 10
 
 
-def _send(fd: int, obj: object) -> None:
-    _write_message(fd, pickle.dumps(obj, protocol=pickle.HIGHEST_PROTOCOL))
-
-
-def _write_message(fd: int, data: bytes) -> None:
-    view = memoryview(_LENGTH.pack(len(data)) + data)
-    while view:
-        view = view[os.write(fd, view):]
-
-
-def _receive(fd: int) -> Any:
-    """The next message on ``fd``; EOFError when the other end closed."""
-    head = _read_exactly(fd, _LENGTH.size)
-    return pickle.loads(_read_exactly(fd, _LENGTH.unpack(head)[0]))
-
-
-def _read_exactly(fd: int, n: int) -> bytes:
-    parts, got = [], 0
-    while got < n:
-        part = os.read(fd, min(n - got, 1 << 20))
-        if not part:
-            raise EOFError("the other end closed the pipe")
-        parts.append(part)
-        got += len(part)
-    return b"".join(parts)
-
-
-def _usable_cores() -> int:
-    try:
-        return len(os.sched_getaffinity(0))
-    except AttributeError:  # not on Linux
-        return os.cpu_count() or 1
-
-
 def can_paint_aside() -> bool:
-    """Whether a painter can be started: Linux (fork of a process whose libraries are loaded
-    is safe there when one thread runs), one thread running, and at least two usable cores
-    (on one core, drawing aside would only compete with the run)."""
-    return (sys.platform.startswith("linux") and threading.active_count() == 1
-            and _usable_cores() >= 2)
+    """Whether a painter can be started: where run workers may be forks of the run
+    (:func:`runner.execution.workers.can_fork`: Linux, one thread running), with at least two
+    usable cores (on one core, drawing aside would only compete with the run)."""
+    return can_fork() and usable_cores() >= 2
 
 
 class _Drawer:
     """The run's ends of the pipes to one drawer process."""
 
-    def __init__(self, requests: int, answers: int) -> None:
+    def __init__(self, requests: Connection, answers: Connection) -> None:
         self.requests = requests
         self.answers = answers
         self.jobs: list[int] = []  # what was sent to it, in order
@@ -115,7 +80,7 @@ class Painter:
             data = pickle.dumps(("draw", index, sketch.data, sketch.paint, key),
                                 protocol=pickle.HIGHEST_PROTOCOL)
             drawer = min(self.drawers, key=lambda d: d.load)
-            _write_message(drawer.requests, data)
+            drawer.requests.send_bytes(data)
         except (OSError, pickle.PickleError, AttributeError, TypeError):
             self.close()
             return
@@ -132,9 +97,9 @@ class Painter:
         drawn: dict[int, Painted] = {}
         try:
             for d in self.drawers:
-                _send(d.requests, ("collect",))
+                d.requests.send(("collect",))
             for d in self.drawers:
-                answer = _receive(d.answers)
+                answer = d.answers.recv()
                 if not isinstance(answer, dict) or sorted(answer) != sorted(d.jobs):
                     raise ValueError("a drawer failed")  # draw here, where the error shows
                 drawn.update(answer)
@@ -160,11 +125,8 @@ class Painter:
             return
         self.closed = True
         for d in self.drawers:
-            for fd in (d.requests, d.answers):
-                try:
-                    os.close(fd)
-                except OSError:
-                    pass
+            d.requests.close()
+            d.answers.close()
         deadline = time.monotonic() + CLOSE_WAIT
         try:
             while os.waitpid(self.pid, os.WNOHANG) == (0, 0):
@@ -191,11 +153,7 @@ def start_painter() -> Iterator[Painter | None]:
 
 
 def _fork_painter() -> Painter | None:
-    for stream in (sys.stdout, sys.stderr):  # nothing buffered here may be written twice
-        try:
-            stream.flush()
-        except (OSError, ValueError, AttributeError):
-            pass
+    flush_before_fork()
     # per drawer: requests (run -> drawer) and answers (drawer -> run)
     pipes = [(os.pipe(), os.pipe()) for _ in range(2)]
     try:
@@ -210,21 +168,23 @@ def _fork_painter() -> Painter | None:
         for (req_r, req_w), (ans_r, ans_w) in pipes:
             os.close(req_r)
             os.close(ans_w)
-            drawers.append(_Drawer(req_w, ans_r))
+            drawers.append(_Drawer(Connection(req_w, readable=False),
+                                   Connection(ans_r, writable=False)))
         return Painter(pid, drawers)
     code = 0
     try:  # the child: never returns into the caller's code
         for (_, req_w), (ans_r, _) in pipes:
             os.close(req_w)
             os.close(ans_r)
-        _serve([(req_r, ans_w) for (req_r, _), (_, ans_w) in pipes])
+        _serve([(Connection(req_r, writable=False), Connection(ans_w, readable=False))
+                for (req_r, _), (_, ans_w) in pipes])
     except BaseException:
         code = 1
     finally:
         os._exit(code)
 
 
-def _serve(ends: list[tuple[int, int]]) -> None:
+def _serve(ends: list[tuple[Connection, Connection]]) -> None:
     """The painter: load and warm up matplotlib, fork the second drawer, then each draws what
     its pipe brings until the pipe closes."""
     # Ctrl-C is the run's to handle: it ends these processes by closing the pipes.
@@ -251,12 +211,12 @@ def _serve(ends: list[tuple[int, int]]) -> None:
     except OSError:  # its pipe closes with this process's end: the run then draws itself
         second = -1
     if second == 0:
-        os.close(mine_r)
-        os.close(mine_w)
+        mine_r.close()
+        mine_w.close()
         _draw_requests(theirs_r, theirs_w)
         return
-    os.close(theirs_r)
-    os.close(theirs_w)
+    theirs_r.close()
+    theirs_w.close()
     try:
         _draw_requests(mine_r, mine_w)
     finally:
@@ -267,18 +227,18 @@ def _serve(ends: list[tuple[int, int]]) -> None:
                 pass
 
 
-def _draw_requests(requests: int, answers: int) -> None:
+def _draw_requests(requests: Connection, answers: Connection) -> None:
     """Draw each sketch as it comes; send what was drawn when the run asks to collect (not
     before: the run reads only then, and a full pipe would stop the drawing)."""
     drawn: dict[int, Painted] = {}
     failed = ""
     while True:
         try:
-            message = _receive(requests)
+            message = requests.recv()
         except EOFError:
             return
         if message[0] == "collect":
-            _send(answers, failed or drawn)
+            answers.send(failed or drawn)
             drawn, failed = {}, ""
             continue
         _, index, data, paint, key = message

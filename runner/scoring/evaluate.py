@@ -19,7 +19,6 @@ prints, and ``unscored_actuals`` in the manifest).
 
 from __future__ import annotations
 
-import os
 from collections.abc import Callable
 from concurrent.futures import ThreadPoolExecutor
 from typing import TypeVar
@@ -28,6 +27,7 @@ import numpy as np
 
 from runner.config import ForecasterSpec
 from runner.execution.dispatch import EngineCounts, forecast_models
+from runner.execution.engines import usable_cores
 from runner.execution.model_tasks import build_model_tasks
 from runner.execution.panel_tasks import build_panel_tasks, panel_results, panel_rows
 from runner.execution.tasks import ModelTask, TaskOutcome
@@ -210,11 +210,7 @@ THREADED_VALUES = 100_000
 def _threads(n_forecasters: int) -> int:
     """Threads for the per-forecaster work of a chunk: numpy releases Python's lock inside
     its array loops, so the forecasters of a large chunk are computed side by side."""
-    try:
-        cores = len(os.sched_getaffinity(0))
-    except AttributeError:  # not on Linux
-        cores = os.cpu_count() or 1
-    return max(1, min(n_forecasters, cores, 4))
+    return max(1, min(n_forecasters, usable_cores(), 4))
 
 
 def _each(pool: ThreadPoolExecutor, size: int, work: Callable[[T], R], items: list[T]
