@@ -37,6 +37,7 @@ import pandas as pd
 from runner.config import DatasetConfig
 from runner.data.panel import Panel
 from runner.errors import DataError
+from runner.paths import config_relative
 
 #: The key column of an attribute_file for a wide dataset, whose series are its columns.
 WIDE_KEY = "series"
@@ -53,13 +54,13 @@ def attach_attributes(panel: Panel, ds: DatasetConfig, base_dir: Path) -> None:
     """
     if not ds.attributes:
         return
-    data_path = _resolve(ds.path, base_dir)
+    data_path = config_relative(ds.path, base_dir)
     key_cols = ds.series_columns if ds.layout == "long" else [WIDE_KEY]
     data_cols = _columns(data_path, ds.path) if ds.layout == "long" else []
     side_cols: list[str] = []
     side_path = None
     if ds.attribute_file is not None:
-        side_path = _resolve(ds.attribute_file, base_dir)
+        side_path = config_relative(ds.attribute_file, base_dir)
         side_cols = _columns(side_path, ds.attribute_file)
     from_data, from_side = [], []
     for name in ds.attributes:
@@ -96,11 +97,6 @@ def attach_attributes(panel: Panel, ds: DatasetConfig, base_dir: Path) -> None:
 
 
 # ------------------------------------------------------------------------------- reading
-
-
-def _resolve(path: str, base_dir: Path) -> Path:
-    p = Path(path).expanduser()
-    return p if p.is_absolute() else Path(base_dir) / p
 
 
 def _kind(path: Path, label: str) -> str:

@@ -39,6 +39,7 @@ from runner.data.missing import apply_missing_policy
 from runner.data.panel import Panel
 from runner.data.rows import reject_duplicates
 from runner.data.steps import step_axis
+from runner.paths import config_relative
 
 _FINGERPRINT_VERSION = b"castgrid-panel-1\0"
 
@@ -55,9 +56,7 @@ def load_panel(
     problem with the file or its contents, :class:`~runner.errors.ConfigError` for a
     ``frequency`` that is no frequency or does not apply.
     """
-    path = Path(ds.path).expanduser()
-    if not path.is_absolute():
-        path = Path(base_dir) / path
+    path = config_relative(ds.path, base_dir)
     src = Source(ds.path, wide=ds.layout == "wide")
     src.entry = f"{entry}." if entry else f'dataset "{ds.name}": '
     # A frequency that is no frequency is the config's problem: say so before reading data.

@@ -43,6 +43,7 @@ from runner.errors import ConfigError
 from runner.forecasters.recorded_file import Columns, RecordedFile, read_recorded
 from runner.forecasters.recorded_match import RecordedForecasts, match_plan
 from runner.forecasters.registry import is_from_file
+from runner.paths import config_relative
 from runner.windows.axis import TimeAxis, time_axis
 from runner.windows.plan import Plan
 
@@ -278,9 +279,7 @@ class RecordedSources:
                     c.columns = resolve_columns(c.params, ds)
                 except ValueError as exc:
                     raise ConfigError(f"{self.source}: {c.location}.params.{exc}") from None
-                path = Path(c.params.path).expanduser()
-                if not path.is_absolute():
-                    path = self.base / path
+                path = config_relative(c.params.path, self.base)
                 c.file = read_recorded(path, c.params.path, c.columns, panel, axis, self.levels)
             out.append(c)
         return out

@@ -43,6 +43,7 @@ from typing import Any
 
 from runner import __version__
 from runner.output.reader import MANIFEST
+from runner.paths import config_relative
 
 #: The file of a results folder in which a run records what the check compares.
 RECORD = "rerun.json"
@@ -74,13 +75,6 @@ def file_digest(path: str | Path) -> dict[str, Any]:
             h.update(block)
             size += len(block)
     return {"size": size, "sha256": h.hexdigest()}
-
-
-def resolve_input(path: str, config_folder: Path) -> Path:
-    """A file named in a config, as castgrid finds it: ``~`` expanded, a relative path taken
-    relative to the config's folder."""
-    p = Path(path).expanduser()
-    return p if p.is_absolute() else config_folder / p
 
 
 @cache
@@ -267,7 +261,7 @@ class Inputs:
             return
         try:
             self.files.append({"role": role, "path": path,
-                               **file_digest(resolve_input(path, config_folder))})
+                               **file_digest(config_relative(path, config_folder))})
         except OSError:
             self.refuse(f"{path}: cannot be read")
 
@@ -582,7 +576,7 @@ def _input_state(rec: dict[str, Any], manifest: dict[str, Any], config: Path, ra
                 return f"plugin module {f['module']} is now found at {now}, not {path}"
             where = Path(path)
         else:
-            where = resolve_input(path, base)
+            where = config_relative(path, base)
         try:
             digest = file_digest(where)
         except OSError:
