@@ -136,7 +136,7 @@ def prepare(config: str | Path | Config, config_path: Path | None = None) -> Pla
 
 def _record_inputs(inputs: Inputs, config: Config, config_path: Path) -> None:
     """Hash every file the run will read (datasets, attribute files, recorded forecasts,
-    plugin modules) into ``inputs`` before it is read: the manifest keeps them, so that a rerun
+    plugin modules) into ``inputs`` before it is read: rerun.json keeps them, so that a rerun
     on the same bytes can be found to have nothing to do."""
     from runner.forecasters.registry import BY_KIND, PANEL_PLUGIN, PLUGIN
 

@@ -78,7 +78,8 @@ def test_a_drawing_that_fails_aside_is_drawn_here_where_its_error_shows() -> Non
     painter = painter_module._fork_painter()
     assert painter is not None
     try:
-        assert painter.paint([(Sketch({"what": "this"}, _fails), "key")]) is None
+        painter.submit(Sketch({"what": "this"}, _fails), "key")
+        assert painter.collect() is None
         assert painter.closed
     finally:
         painter.close()
@@ -100,7 +101,7 @@ def test_the_painter_yields_the_cores_to_the_run() -> None:
     painter = painter_module._fork_painter()
     assert painter is not None
     try:
-        painter.paint([])  # an answer: it is past its set-up
+        painter.collect()  # an answer: it is past its set-up
         mine = os.getpriority(os.PRIO_PROCESS, 0)
         assert os.getpriority(os.PRIO_PROCESS, painter.pid) == min(19, mine
                                                                   + painter_module.NICENESS)

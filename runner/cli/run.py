@@ -80,7 +80,7 @@ def main(args: argparse.Namespace) -> int:
             for s in summarise(dp.skipped):
                 print(f"castgrid: warning: {dp.panel.name}: skipped {s}", file=sys.stderr)
     result = run(
-        plan, out_dir=args.out, use_cache=not args.no_cache, jobs=args.jobs, quiet=args.quiet,
+        plan, out_dir=args.out, use_cache=not args.no_cache, jobs=args.jobs, quiet=args.quiet
     )
     cfg = plan.config
     # the same text the results folder keeps (runner.output.uptodate.TERMINAL)

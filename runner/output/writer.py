@@ -284,7 +284,9 @@ class Staging:
         (tmp / "leaderboard.md").write_text(
             to_markdown(board, cfg.rank_by, cfg.metrics), encoding="utf-8"
         )
-        _write_manifest(tmp, man)
+        (tmp / "manifest.json").write_text(
+            json.dumps(man, indent=2, sort_keys=True) + "\n", encoding="utf-8"
+        )
         from runner.output.segments import write_segment_files
 
         write_segment_files(ev, tmp, board)
@@ -312,12 +314,6 @@ class Staging:
         _seal(tmp, ev)
         _swap_in(tmp, self.out_dir)
         return man
-
-
-def _write_manifest(folder: Path, man: dict[str, Any]) -> None:
-    (folder / "manifest.json").write_text(
-        json.dumps(man, indent=2, sort_keys=True) + "\n", encoding="utf-8"
-    )
 
 
 def _seal(folder: Path, ev: Evaluation) -> None:

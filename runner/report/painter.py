@@ -109,12 +109,6 @@ class Painter:
             return None
         return [drawn[i] for i in range(count)]
 
-    def paint(self, jobs: list[tuple[Sketch, str]]) -> list[Painted] | None:
-        """:meth:`submit` each ``(sketch, key)``, then :meth:`collect`."""
-        for sketch, key in jobs:
-            self.submit(sketch, key)
-        return self.collect()
-
     def close(self) -> None:
         """End the painter processes and reap them (idempotent).
 
