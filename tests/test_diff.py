@@ -153,10 +153,16 @@ def test_fail_if_worse_gates_on_candidates_only(pair: tuple[Path, Path],
     assert main(["diff", old, new]) == 0  # without the option the diff only reports
 
 
-def test_identical_folders(tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
+def _folder_and_copy(tmp_path: Path) -> tuple[Path, Path]:
+    """Results folder ``a`` of OLD_SHOPS with arima, and ``b`` a byte copy of it."""
     a = write_folder(tmp_path / "a", OLD_SHOPS, "aaaa1111", ["arima"])
     b = tmp_path / "b"
     shutil.copytree(a, b)
+    return a, b
+
+
+def test_identical_folders(tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
+    a, b = _folder_and_copy(tmp_path)
     assert main(["diff", str(a), str(b), "--fail-if-worse", "0"]) == 0
     out = capsys.readouterr().out
     assert out.rstrip().endswith("no change: same config, data, forecasters and scores")
@@ -164,9 +170,7 @@ def test_identical_folders(tmp_path: Path, capsys: pytest.CaptureFixture[str]) -
 
 
 def test_a_vanished_score_counts_as_worse(tmp_path: Path) -> None:
-    a = write_folder(tmp_path / "a", OLD_SHOPS, "aaaa1111", ["arima"])
-    b = tmp_path / "b"
-    shutil.copytree(a, b)
+    a, b = _folder_and_copy(tmp_path)
     text = (b / "leaderboard.csv").read_text().replace(
         "shops,1,arima,arima,candidate,4,5,20,0,8,1.5,0.8,0.1,0.8,",
         "shops,,arima,arima,candidate,4,5,0,20,,,,,,")
@@ -254,6 +258,16 @@ PLATFORM = {"machine": "x86_64", "system": "Linux", "cpu": "Example CPU",
                       "file": "libopenblas.so"}]}
 
 
+#: arima's leaderboard row in OLD_SHOPS, up to its mase: rank ... failed, mae, mae sd, mase
+ARIMA_ROW = "shops,1,arima,arima,candidate,4,5,20,0,{mae},1.5,{mase},"
+
+
+def _arima_scores(mae: str, mase: str):
+    """An ``edit_csv`` for :func:`_rewrite`: arima's mae and mase (8 and 0.8) replaced."""
+    return lambda t: t.replace(ARIMA_ROW.format(mae="8", mase="0.8"),
+                               ARIMA_ROW.format(mae=mae, mase=mase))
+
+
 def _rewrite(folder: Path, edit_csv=None, platform=None) -> None:
     if edit_csv is not None:
         board = folder / "leaderboard.csv"
@@ -269,9 +283,7 @@ def _rewrite(folder: Path, edit_csv=None, platform=None) -> None:
 
 def _two_kernels(tmp_path: Path) -> tuple[Path, Path]:
     """Two copies of one results folder, recorded on SkylakeX and on Haswell."""
-    a = write_folder(tmp_path / "a", OLD_SHOPS, "aaaa1111", ["arima"])
-    b = tmp_path / "b"
-    shutil.copytree(a, b)
+    a, b = _folder_and_copy(tmp_path)
     _rewrite(a, platform=PLATFORM)
     other = json.loads(json.dumps(PLATFORM))
     other["blas"][0]["kernel"] = "Haswell"
@@ -284,8 +296,7 @@ def test_a_platform_change_is_named_and_noise_is_within_tolerance(
 ) -> None:
     a, b = _two_kernels(tmp_path)
     # arima's mase 0.8 -> 0.804 (+0.5%) and mae 8 -> 7.96 (-0.5%): within 2%
-    _rewrite(b, lambda t: t.replace("shops,1,arima,arima,candidate,4,5,20,0,8,1.5,0.8,",
-                                    "shops,1,arima,arima,candidate,4,5,20,0,7.96,1.5,0.804,"))
+    _rewrite(b, _arima_scores("7.96", "0.804"))
     d = compare(Results.load(str(a)), Results.load(str(b)))
     assert d.platform_changes == [
         "BLAS openblas 0.3.31 SkylakeX -> openblas 0.3.31 Haswell"]
@@ -307,13 +318,9 @@ def test_on_one_platform_every_difference_is_real(
     tmp_path: Path, capsys: pytest.CaptureFixture[str]
 ) -> None:
     # the same platform gives the same bits (SPEC): there a +0.05% move is a change
-    a = write_folder(tmp_path / "a", OLD_SHOPS, "aaaa1111", ["arima"])
-    b = tmp_path / "b"
-    shutil.copytree(a, b)
+    a, b = _folder_and_copy(tmp_path)
     _rewrite(a, platform=PLATFORM)
-    _rewrite(b, lambda t: t.replace("shops,1,arima,arima,candidate,4,5,20,0,8,1.5,0.8,",
-                                    "shops,1,arima,arima,candidate,4,5,20,0,8,1.5,0.8004,"),
-             platform=PLATFORM)
+    _rewrite(b, _arima_scores("8", "0.8004"), platform=PLATFORM)
     d = compare(Results.load(str(a)), Results.load(str(b)))
     assert d.platform_changes == [] and d.changed() and d.within_tolerance() == 0
     assert main(["diff", str(a), str(b), "--fail-if-worse", "0"]) == 4
@@ -327,12 +334,9 @@ def test_on_one_platform_every_difference_is_real(
 def test_a_change_beyond_tolerance_is_real_on_any_platform(
     tmp_path: Path, capsys: pytest.CaptureFixture[str]
 ) -> None:
-    a = write_folder(tmp_path / "a", OLD_SHOPS, "aaaa1111", ["arima"])
-    b = tmp_path / "b"
-    shutil.copytree(a, b)
+    a, b = _folder_and_copy(tmp_path)
     # +2.5%: past the 2% tolerance, so it is worse and gates at 1%
-    _rewrite(b, lambda t: t.replace("shops,1,arima,arima,candidate,4,5,20,0,8,1.5,0.8,",
-                                    "shops,1,arima,arima,candidate,4,5,20,0,8,1.5,0.82,"))
+    _rewrite(b, _arima_scores("8", "0.82"))
     d = compare(Results.load(str(a)), Results.load(str(b)))
     assert d.changed() and d.within_tolerance() == 0
     assert [name for _, name, _ in d.worse_than(1)] == ["arima"]
